@@ -1,0 +1,62 @@
+"""The exceptions actdoc raises for input it cannot use.
+
+Every error a user can cause carries one sentence that names the file, the layer and the array
+where that makes sense, and what is wrong. The command line prints that sentence alone and exits
+with status 2; the web layer maps each class to an HTTP status in one place.
+"""
+
+from __future__ import annotations
+
+
+class ActdocError(Exception):
+    """Base class: a problem with the user's input, explained in one sentence."""
+
+    exit_status = 2
+
+    def __init__(self, message: str):
+        super().__init__(message)
+        self.message = message
+
+    def __str__(self) -> str:
+        return self.message
+
+
+class UnreadableDump(ActdocError):
+    """The file is missing, not HDF5 or NPZ, truncated or corrupt."""
+
+
+class UnsupportedFormat(UnreadableDump):
+    """The file's leading bytes match no reader (neither HDF5 nor a zip-based NPZ)."""
+
+
+class InvalidDump(ActdocError):
+    """The file was read, but what it holds breaks the dump layout."""
+
+
+class UnknownActivation(InvalidDump):
+    """A layer names an activation kind actdoc does not know."""
+
+
+class UnsafeDump(InvalidDump):
+    """The dump reaches outside itself (external links, external or virtual datasets) or
+    holds pickled objects."""
+
+
+class DumpTooLarge(InvalidDump):
+    """An archive member declares more bytes than the configured limit allows."""
+
+
+class InvalidSetting(ActdocError):
+    """A threshold override names an unknown setting or gives an unusable value."""
+
+
+def describe(path: object, layer: str | None = None, array: str | None = None) -> str:
+    """The "where" part of an error sentence: file, then layer, then array."""
+    from pathlib import Path
+
+    where = f"{Path(str(path)).name}"
+    if layer is not None:
+        where += f", layer '{layer}'"
+    if array is not None:
+        where += f", array '{array}'"
+    return where
