@@ -326,6 +326,9 @@ class Finding:
     summary: str
     cause: str
     remedy: str
+    #: Per-unit value of the measure, aligned with ``units`` (e.g. each unit's active share);
+    #: empty for layer-level checks.
+    unit_measures: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True)
