@@ -1,0 +1,107 @@
+"""The findings document (interfaces.md section 4) and the small helpers every format shares."""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from typing import Any
+
+from actdoc.model import Finding, Findings, LayerReport, LayerStatus, Severity
+
+SCHEMA = "actdoc.findings/1"
+
+
+def clean_number(value: Any) -> float | int | None:
+    """A JSON-safe number: NaN and infinities become None (JSON has no spelling for them)."""
+    if value is None:
+        return None
+    if isinstance(value, (bool, int)):
+        return int(value)
+    number = float(value)
+    return number if math.isfinite(number) else None
+
+
+def layer_entry(report: LayerReport) -> dict[str, Any]:
+    """One entry of the document's ``layers`` list, with actdoc's documented extensions."""
+    info = report.info
+    return {
+        "name": info.name,
+        "index": info.index,
+        "activation": info.kind.value,
+        "activation_source": info.kind_source.value,
+        "units": info.units,
+        "samples": info.samples,
+        "observations": info.observations,
+        "fractions": {check: clean_number(share) for check, share in report.fractions.items()},
+        "status": report.status.value,
+        # Extensions (documented in docs/findings.md):
+        "output_scale": clean_number(report.output_scale),
+        "gradient_gain": clean_number(report.gradient_gain),
+        "activation_note": info.kind_note,
+    }
+
+
+def finding_entry(finding: Finding) -> dict[str, Any]:
+    """One entry of the document's ``findings`` list."""
+    return {
+        "check": finding.check,
+        "severity": finding.severity.value,
+        "layer": finding.layer,
+        "units": [int(u) for u in sorted(finding.units)],
+        "measure": clean_number(finding.measure),
+        "threshold": clean_number(finding.threshold),
+        "summary": finding.summary,
+        "cause": finding.cause,
+        "remedy": finding.remedy,
+    }
+
+
+def to_document(findings: Findings) -> dict[str, Any]:
+    """The findings document exactly as interfaces.md section 4 fixes it, plus extensions
+    (``caveat``, ``verdict``, ``settings``, and per-layer ``output_scale``, ``gradient_gain``,
+    ``activation_note``)."""
+    source = findings.source
+    return {
+        "schema": SCHEMA,
+        "source": {
+            "file": source.file,
+            "sha256": source.sha256,
+            "format": source.format,
+            "samples": int(source.samples),
+        },
+        "layers": [layer_entry(report) for report in findings.layers],
+        "findings": [finding_entry(finding) for finding in findings.findings],
+        "verdict": verdict(findings),
+        "caveat": findings.caveat,
+        "settings": {name: clean_number(value) if isinstance(value, (int, float)) else value
+                     for name, value in findings.settings.items()},
+    }
+
+
+def verdict(findings: Findings) -> dict[str, Any]:
+    """Counts a reader wants first: layers per status and findings per severity."""
+    statuses = Counter(report.status.value for report in findings.layers)
+    severities = Counter(finding.severity.value for finding in findings.findings)
+    worst = findings.worst()
+    return {
+        "layers": {status.value: statuses.get(status.value, 0) for status in LayerStatus},
+        "findings": {severity.value: severities.get(severity.value, 0) for severity in Severity},
+        "worst": None if worst is None else worst.value,
+    }
+
+
+def ordered_findings(findings: Findings) -> list[Finding]:
+    """Most serious first; within a severity, forward layer order, then as the engine listed."""
+    position = {report.name: report.info.index for report in findings.layers}
+    indexed = list(enumerate(findings.findings))
+    indexed.sort(key=lambda pair: (-pair[1].severity.rank, position.get(pair[1].layer, 0), pair[0]))
+    return [finding for _, finding in indexed]
+
+
+def unit_list(units: tuple[int, ...], limit: int = 12) -> str:
+    """"3, 7, 12 and 40 more" style listing for prose reports."""
+    if not units:
+        return "the whole layer"
+    shown = ", ".join(str(u) for u in units[:limit])
+    rest = len(units) - limit
+    return shown if rest <= 0 else f"{shown} and {rest} more"
