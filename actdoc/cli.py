@@ -1,0 +1,193 @@
+"""The ``actdoc`` command: analyse a dump, gate a pipeline, serve the dashboard, write demos.
+
+The command only wraps the core and the app: it parses arguments, calls them, and maps every
+input error to one line on stderr and exit status 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Callable, Sequence
+
+from actdoc import __version__
+from actdoc.errors import ActdocError
+
+EXIT_OK, EXIT_FLAGGED, EXIT_INVALID = 0, 1, 2
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr; silent when stderr is not a terminal."""
+
+    def __init__(self, label: str, stream=None, enabled: bool | None = None):
+        self.stream = stream or sys.stderr
+        self.enabled = self.stream.isatty() if enabled is None else enabled
+        self.label = label
+        self._last = -1.0
+        self._started = time.monotonic()
+
+    def __call__(self, fraction: float) -> None:
+        if not self.enabled:
+            return
+        fraction = min(1.0, max(0.0, float(fraction)))
+        if fraction - self._last < 0.005 and fraction < 1.0:
+            return
+        self._last = fraction
+        filled = int(round(30 * fraction))
+        elapsed = time.monotonic() - self._started
+        self.stream.write(f"\r{self.label} [{'#' * filled}{'.' * (30 - filled)}] "
+                          f"{100 * fraction:5.1f}%  {elapsed:5.1f}s")
+        if fraction >= 1.0:
+            self.stream.write("\n")
+        self.stream.flush()
+
+
+def _input_options(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("dump", help="the dump: HDF5 or NPZ file (layout in docs/dump-layout.md)")
+    parser.add_argument(
+        "--activation", action="append", default=[], metavar="KIND|LAYER=KIND",
+        help="activation kind for weight archives: KIND for every layer but the last (which "
+             "stays linear), or LAYER=KIND for one layer; repeatable; also overrides a "
+             "declared or inferred kind")
+    parser.add_argument("--set", dest="overrides", action="append", default=[],
+                        metavar="NAME=VALUE", help="override one threshold (see docs/checks.md)")
+    parser.add_argument("--config", type=Path, metavar="TOML",
+                        help="a TOML file of threshold overrides")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="actdoc",
+        description="Find hidden units that have stopped doing useful work in a model dump.")
+    parser.add_argument("--version", action="version", version=f"actdoc {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    analyze = sub.add_parser("analyze", help="print or write the findings for a dump")
+    _input_options(analyze)
+    analyze.add_argument("--format", choices=("json", "csv", "md", "text"), default="text")
+    analyze.add_argument("--output", type=Path, metavar="FILE",
+                         help="write the report here instead of standard output")
+
+    check = sub.add_parser("check", help="exit 1 when a finding reaches the given level")
+    _input_options(check)
+    check.add_argument("--fail-on", choices=("warning", "critical"), default="critical")
+
+    serve = sub.add_parser("serve", help="open the dashboard")
+    serve.add_argument("--host", default="127.0.0.1")
+    serve.add_argument("--port", type=int, default=8150)
+    serve.add_argument("--workspace", type=Path, metavar="DIR",
+                       help="where uploads and analyses are kept (default: a per-user folder)")
+    serve.add_argument("--demo", action="store_true", help="load the bundled demo dumps")
+    serve.add_argument("--token", help="access token required off loopback (default: random)")
+
+    demo = sub.add_parser("demo", help="train the demo networks and write their dumps")
+    demo.add_argument("--output", type=Path, default=Path("actdoc-demo"), metavar="DIR")
+    return parser
+
+
+def _analyse(args: argparse.Namespace, label: str):
+    """Open the dump, run the engine with a progress bar, return the Findings."""
+    from actdoc.analysis import analyze
+    from actdoc.analysis.defaults import load_settings
+    from actdoc.io import open_dump
+
+    settings = load_settings(args.config, args.overrides)
+    with open_dump(args.dump, activations=args.activation) as dump:
+        return analyze(dump, settings, progress=ProgressBar(label))
+
+
+def write_atomically(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` through a temporary file, so a failure leaves any old file."""
+    path = Path(path)
+    folder = path.parent if str(path.parent) else Path(".")
+    handle, temp = tempfile.mkstemp(dir=folder, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8", newline="") as out:
+            out.write(text)
+        os.replace(temp, path)
+    except BaseException:
+        Path(temp).unlink(missing_ok=True)
+        raise
+
+
+def cmd_analyze(args: argparse.Namespace) -> int:
+    from actdoc.reports import render
+
+    findings = _analyse(args, "analysing")
+    report = render(findings, args.format)
+    if args.output is None:
+        sys.stdout.write(report)
+    else:
+        try:
+            write_atomically(args.output, report)
+        except OSError as err:
+            raise ActdocError(f"cannot write the report to {args.output}: {err.strerror}")
+    return EXIT_OK
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    from actdoc.model import Severity
+
+    findings = _analyse(args, "checking")
+    level = Severity(args.fail_on)
+    hits = [f for f in findings.findings if f.severity.rank >= level.rank]
+    name = findings.source.file
+    if hits:
+        layers = sorted({f.layer for f in hits})
+        print(f"{name}: {len(hits)} finding(s) at or above {level.value} "
+              f"in {', '.join(layers)}")
+        for finding in hits:
+            print(f"  {finding.severity.value}: {finding.layer} / {finding.check}: "
+                  f"{finding.summary}")
+        return EXIT_FLAGGED
+    print(f"{name}: nothing at or above {level.value} "
+          f"({len(findings.findings)} finding(s) below it)")
+    return EXIT_OK
+
+
+def cmd_serve(args: argparse.Namespace) -> int:
+    from actdoc.web import serve
+
+    serve(host=args.host, port=args.port, workspace=args.workspace, demo=args.demo,
+          token=args.token)
+    return EXIT_OK
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from demo_models.generate import write_all
+
+    started = time.monotonic()
+    try:
+        paths = write_all(args.output)
+    except OSError as err:
+        raise ActdocError(f"cannot write the demo dumps to {args.output}: {err.strerror or err}")
+    for path in paths:
+        print(path)
+    print(f"wrote {len(paths)} demo dumps to {args.output} in "
+          f"{time.monotonic() - started:.1f}s", file=sys.stderr)
+    return EXIT_OK
+
+
+COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
+    "analyze": cmd_analyze, "check": cmd_check, "serve": cmd_serve, "demo": cmd_demo,
+}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    try:
+        return COMMANDS[args.command](args)
+    except ActdocError as err:
+        print(f"actdoc: {err}", file=sys.stderr)
+        return EXIT_INVALID
+    except KeyboardInterrupt:
+        print("actdoc: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
