@@ -1,0 +1,118 @@
+"""Opening dumps: pick the reader by the file's leading bytes, validate, assemble.
+
+``open_dump(path)`` is the one entry point the rest of actdoc uses. The reader is chosen from the
+file's content, never its name: HDF5 by its signature (at offset 0 or after a user block of 512,
+1024, ... bytes), NPZ by the zip signature. ``activations`` carries the command line's
+``--activation`` values; they name kinds for state-dict weight archives (which store none) and
+override the declared or inferred kind of any dump.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+from pathlib import Path
+from typing import Any, Sequence
+
+from actdoc.errors import InvalidDump, UnreadableDump, UnsupportedFormat, describe
+from actdoc.io.base import RawDump, assemble, order_layers
+from actdoc.io.hdf5 import READER as HDF5_READER, find_signature
+from actdoc.io.memory import MemorySource, dump_from_arrays
+from actdoc.io.npz import DEFAULT_MEMBER_LIMIT, READER as NPZ_READER
+from actdoc.model import ActivationKind, Dump
+
+#: Every reader, tried in order on the file's first bytes.
+READERS = (HDF5_READER, NPZ_READER)
+HEAD_BYTES = 16
+
+__all__ = ["open_dump", "file_sha256", "parse_activations", "READERS", "DEFAULT_MEMBER_LIMIT",
+           "MemorySource", "dump_from_arrays"]
+
+
+def file_sha256(path: str | Path, block_bytes: int = 1 << 20) -> str:
+    """Hex SHA-256 of a file, read in blocks."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(block_bytes), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def pick_reader(path: Path) -> Any:
+    """The reader whose signature the file carries, or UnreadableDump / UnsupportedFormat."""
+    where = describe(path)
+    if not path.exists():
+        raise UnreadableDump(f"{where}: no such file")
+    if path.is_dir():
+        raise UnreadableDump(f"{where}: is a folder, not a dump file")
+    try:
+        with open(path, "rb") as handle:
+            head = handle.read(HEAD_BYTES)
+        for reader in READERS:
+            if reader.sniff(head):
+                return reader
+        if find_signature(path):
+            return HDF5_READER
+    except OSError as exc:
+        raise UnreadableDump(f"{where}: cannot be read ({exc.strerror or exc})") from None
+    if not head:
+        raise UnsupportedFormat(f"{where}: the file is empty; expected an HDF5 or NPZ dump")
+    hint = " (a single .npy array: save the arrays with np.savez)" \
+        if head.startswith(b"\x93NUMPY") else ""
+    raise UnsupportedFormat(f"{where}: neither HDF5 nor NPZ (it starts with {head[:8]!r}){hint}")
+
+
+def parse_activations(specs: Sequence[str], path: Path) -> tuple[ActivationKind | None,
+                                                                 dict[str, ActivationKind]]:
+    """``--activation`` values: one bare ``KIND`` and/or repeated ``LAYER=KIND``."""
+    default: ActivationKind | None = None
+    per_layer: dict[str, ActivationKind] = {}
+    for spec in specs:
+        layer, sep, kind = str(spec).rpartition("=")
+        if sep:
+            where = describe(path, layer.strip())
+            per_layer[layer.strip()] = ActivationKind.parse(kind, where)
+        elif default is not None:
+            raise InvalidDump(f"{describe(path)}: --activation gives more than one kind for "
+                              f"every layer ('{default.value}' and '{kind}'); use LAYER=KIND "
+                              f"for the exceptions")
+        else:
+            default = ActivationKind.parse(kind, f"{describe(path)}, --activation")
+    return default, per_layer
+
+
+def apply_activations(raw: RawDump, specs: Sequence[str]) -> RawDump:
+    """Declared kinds from ``--activation``: a bare KIND for every layer but the last (in
+    forward order), LAYER=KIND for one layer; both replace what the file says."""
+    default, per_layer = parse_activations(specs, raw.path)
+    if not raw.layers:
+        return raw
+    names = [layer.name for layer in raw.layers]
+    unknown = [name for name in per_layer if name not in names]
+    if unknown:
+        raise InvalidDump(f"{describe(raw.path, unknown[0])}: --activation names a layer the dump "
+                          f"does not hold; its layers are {', '.join(names)}")
+    ordered = [layer.name for layer in order_layers(raw)]
+    chosen = {name: default for name in ordered[:-1]} if default is not None else {}
+    chosen.update(per_layer)
+    layers = tuple(
+        dataclasses.replace(layer, attrs={**layer.attrs, "activation": chosen[layer.name].value})
+        if layer.name in chosen else layer
+        for layer in raw.layers)
+    return dataclasses.replace(raw, layers=layers)
+
+
+def open_dump(path: str | Path, *, activations: Sequence[str] = (),
+              member_limit_bytes: int = DEFAULT_MEMBER_LIMIT) -> Dump:
+    """Open and validate a dump file; the returned Dump reads its arrays lazily (close it)."""
+    path = Path(path)
+    reader = pick_reader(path)
+    raw = reader.read(path, {"member_limit_bytes": member_limit_bytes})
+    try:
+        if activations:
+            raw = apply_activations(raw, activations)
+        return assemble(raw)
+    except BaseException:
+        if raw.closer is not None:
+            raw.closer()
+        raise

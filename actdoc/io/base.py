@@ -12,8 +12,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Mapping, Protocol
 
-from actdoc.errors import InvalidDump, describe
+import numpy as np
+
+from actdoc.errors import InvalidDump, UnreadableDump, UnsafeDump, describe
 from actdoc.model import (
+    ACTIVATION_ARRAYS,
     ActivationKind,
     ActivationSource,
     ArrayInfo,
@@ -67,60 +70,188 @@ def order_layers(raw: RawDump) -> list[RawLayer]:
     """Forward order: the ``order`` attribute where every layer has one, else the reader's."""
     layers = list(raw.layers)
     if layers and all("order" in layer.attrs for layer in layers):
-        return sorted(layers, key=lambda layer: (int(layer.attrs["order"]), layer.position))
+        return sorted(layers, key=lambda layer: (float(np.asarray(layer.attrs["order"]).reshape(())),
+                                                 layer.position))
     if raw.ordering == "natural":
         return sorted(layers, key=lambda layer: natural_key(layer.name))
     return sorted(layers, key=lambda layer: layer.position)
+
+
+#: Kinds whose outputs may be stored as integers or booleans (interfaces.md section 1).
+BINARY_KINDS = frozenset({ActivationKind.THRESHOLD, ActivationKind.STOCHASTIC_BINARY})
+
+#: Attributes that must be numbers, with what they mean (for the error sentence).
+NUMERIC_ATTRIBUTES = {"order": "an integer", "negative_slope": "a number", "threshold": "a number"}
 
 
 def resolve_kind(raw: RawDump, layer: RawLayer) -> tuple[ActivationKind, ActivationSource, dict]:
     """The layer's kind: declared in its attributes, else inferred from its arrays.
 
     Returns the kind, its source, and extra attributes the inference found (negative_slope,
-    note).
+    threshold, note).
     """
     declared = layer.attrs.get("activation")
+    if isinstance(declared, bytes):
+        declared = declared.decode("utf-8", "replace")
     if declared is not None and str(declared).strip():
         where = describe(raw.path, layer.name)
         return ActivationKind.parse(str(declared), where), ActivationSource.DECLARED, {}
+    from actdoc.io.infer import infer_kind
+
     try:
-        from actdoc.io.infer import infer_kind
-    except ImportError:  # inference not available: treat as linear and say so
-        return ActivationKind.LINEAR, ActivationSource.INFERRED, {
-            "note": "no activation declared; treated as linear"}
-    guess = infer_kind(layer.arrays.get("preact"), layer.arrays.get("output"))
-    return guess.kind, ActivationSource.INFERRED, {
-        "negative_slope": guess.negative_slope, "note": guess.note}
+        guess = infer_kind(layer.arrays.get("preact"), layer.arrays.get("output"))
+    except (OSError, ValueError, EOFError) as exc:
+        raise UnreadableDump(
+            f"{describe(raw.path, layer.name)}: reading the activations to infer the layer's "
+            f"kind failed ({exc})") from None
+    found: dict[str, Any] = {"negative_slope": guess.negative_slope, "note": guess.note}
+    if guess.threshold is not None:
+        found["threshold"] = guess.threshold
+    return guess.kind, ActivationSource.INFERRED, found
+
+
+def check_numeric_dtype(raw: RawDump, layer: str, array: str, dtype: Any) -> np.dtype:
+    """Refuse object and non-numeric arrays, and floats other than float16/32/64."""
+    where = describe(raw.path, layer, array)
+    dt = np.dtype(dtype)
+    if dt.hasobject:
+        raise UnsafeDump(f"{where}: holds Python objects (dtype {dt}); dumps hold numbers only")
+    if dt.kind not in "fiub":
+        raise InvalidDump(
+            f"{where}: dtype {dt} is not a real number type; expected float16, float32 or float64")
+    if dt.kind == "f" and dt.itemsize not in (2, 4, 8):
+        raise InvalidDump(
+            f"{where}: dtype {dt} is not accepted; expected float16, float32 or float64")
+    return dt
+
+
+def check_kind_dtype(raw: RawDump, layer: RawLayer, kind: ActivationKind) -> None:
+    """Integer and boolean arrays are accepted only as outputs of binary kinds."""
+    for name, source in layer.arrays.items():
+        dt = np.dtype(source.dtype)
+        if dt.kind == "f" or (name == "output" and kind in BINARY_KINDS):
+            continue
+        raise InvalidDump(
+            f"{describe(raw.path, layer.name, name)}: dtype {dt} is accepted only for the output "
+            f"of threshold and stochastic_binary layers, and this layer is {kind.value}; "
+            f"store it as float16, float32 or float64")
+
+
+def check_attributes(raw: RawDump, layer: RawLayer) -> dict[str, float]:
+    """Numeric attributes as Python numbers, or one sentence saying which one is unusable."""
+    values = {}
+    for name, meaning in NUMERIC_ATTRIBUTES.items():
+        if name not in layer.attrs or layer.attrs[name] is None:
+            continue
+        value = layer.attrs[name]
+        try:
+            number = float(np.asarray(value).reshape(()))
+        except (TypeError, ValueError):
+            number = float("nan")
+        if not np.isfinite(number) or (name == "order" and number != int(number)):
+            raise InvalidDump(
+                f"{describe(raw.path, layer.name)}: attribute '{name}' must be {meaning}, "
+                f"found {value!r}")
+        values[name] = number
+    return values
+
+
+def _shape_text(shape: tuple[int, ...]) -> str:
+    return "[" + ", ".join(str(n) for n in shape) + "]"
 
 
 def layer_geometry(raw: RawDump, layer: RawLayer) -> tuple[int, int, tuple[int, ...]]:
-    """Units, samples and spatial shape, from the activations or else the parameters."""
-    where = describe(raw.path, layer.name)
-    for name in ("preact", "output"):
-        source = layer.arrays.get(name)
-        if source is not None:
-            shape = tuple(source.shape)
-            if len(shape) < 2:
-                raise InvalidDump(
-                    f"{describe(raw.path, layer.name, name)}: expected shape [samples, units] "
-                    f"or [samples, units, *spatial], found {list(shape)}")
-            return shape[1], shape[0], shape[2:]
-    for name in ("weight", "bias"):
-        source = layer.arrays.get(name)
-        if source is not None and len(source.shape) >= 1:
-            return int(source.shape[0]), 0, ()
-    raise InvalidDump(f"{where}: the layer holds none of preact, output, weight, bias")
+    """Units, samples and spatial shape, after checking every array's rank and extent.
+
+    Activations give the geometry; a weights-only layer takes its units from the weight (or
+    bias) and has zero samples.
+    """
+    arrays = layer.arrays
+    if not arrays:
+        raise InvalidDump(
+            f"{describe(raw.path, layer.name)}: the layer holds none of preact, output, weight, bias")
+    for name, source in arrays.items():
+        check_numeric_dtype(raw, layer.name, name, source.dtype)
+    activation_shape = None
+    for name in ACTIVATION_ARRAYS:
+        source = arrays.get(name)
+        if source is None:
+            continue
+        shape = tuple(int(n) for n in source.shape)
+        where = describe(raw.path, layer.name, name)
+        if len(shape) < 2:
+            raise InvalidDump(f"{where}: expected shape [samples, units] or "
+                              f"[samples, units, *spatial], found {_shape_text(shape)}")
+        if 0 in shape:
+            raise InvalidDump(f"{where}: the array is empty (shape {_shape_text(shape)}); "
+                              f"it needs at least one sample and one unit")
+        if activation_shape is not None and shape != activation_shape:
+            raise InvalidDump(f"{where}: shape {_shape_text(shape)} differs from the preact's "
+                              f"{_shape_text(activation_shape)}; the two must match")
+        activation_shape = shape
+    units = None if activation_shape is None else activation_shape[1]
+    weight = arrays.get("weight")
+    if weight is not None:
+        shape = tuple(int(n) for n in weight.shape)
+        where = describe(raw.path, layer.name, "weight")
+        if len(shape) < 2:
+            raise InvalidDump(f"{where}: expected shape [units, fan_in] or "
+                              f"[units, in_channels, *kernel], found {_shape_text(shape)}")
+        if 0 in shape:
+            raise InvalidDump(f"{where}: the array is empty (shape {_shape_text(shape)})")
+        if units is not None and shape[0] != units:
+            raise InvalidDump(f"{where}: has {shape[0]} rows but the layer has {units} units; "
+                              f"expected one row of incoming weights per unit")
+        units = shape[0] if units is None else units
+    bias = arrays.get("bias")
+    if bias is not None:
+        shape = tuple(int(n) for n in bias.shape)
+        where = describe(raw.path, layer.name, "bias")
+        if len(shape) != 1:
+            raise InvalidDump(f"{where}: expected shape [units], found {_shape_text(shape)}")
+        if units is not None and shape[0] != units:
+            raise InvalidDump(f"{where}: has {shape[0]} entries but the layer has {units} units")
+        if shape[0] == 0:
+            raise InvalidDump(f"{where}: the array is empty")
+        units = shape[0] if units is None else units
+    if activation_shape is None:
+        return int(units), 0, ()
+    return activation_shape[1], activation_shape[0], activation_shape[2:]
+
+
+def check_probe_input(raw: RawDump) -> None:
+    """The probe input is optional; when present it must be a numeric array of samples."""
+    source = raw.probe_input
+    if source is None:
+        return
+    where = describe(raw.path, None, "probe/input")
+    dt = np.dtype(source.dtype)
+    if dt.hasobject or dt.kind not in "fiub":
+        raise (UnsafeDump if dt.hasobject else InvalidDump)(
+            f"{where}: dtype {dt} is not a real number type")
+    if len(source.shape) < 1:
+        raise InvalidDump(f"{where}: expected shape [samples, features], found a scalar")
 
 
 def assemble(raw: RawDump) -> Dump:
-    """Validate a RawDump and build the frozen Dump in forward order."""
+    """Validate a RawDump and build the frozen Dump in forward order.
+
+    Layers may hold different numbers of samples (a probe batch recorded in pieces); within a
+    layer, preact and output must agree. The dump's ``samples`` is the largest layer's.
+    """
     if not raw.layers:
         raise InvalidDump(f"{describe(raw.path)}: the dump holds no layers")
+    check_probe_input(raw)
+    for stored in raw.layers:
+        check_attributes(raw, stored)
     layers = []
     for index, stored in enumerate(order_layers(raw)):
-        kind, source, found = resolve_kind(raw, stored)
         units, samples, spatial = layer_geometry(raw, stored)
-        slope = stored.attrs.get("negative_slope", found.get("negative_slope"))
+        attrs = check_attributes(raw, stored)
+        kind, source, found = resolve_kind(raw, stored)
+        check_kind_dtype(raw, stored, kind)
+        slope = attrs.get("negative_slope", found.get("negative_slope"))
+        threshold = attrs.get("threshold", found.get("threshold"))
         info = LayerInfo(
             name=stored.name,
             index=index,
@@ -131,7 +262,7 @@ def assemble(raw: RawDump) -> Dump:
             spatial_shape=tuple(spatial),
             arrays={k: ArrayInfo(tuple(v.shape), str(v.dtype)) for k, v in stored.arrays.items()},
             negative_slope=0.01 if slope is None else float(slope),
-            threshold=float(stored.attrs.get("threshold", 0.0)),
+            threshold=0.0 if threshold is None else float(threshold),
             kind_note=str(found.get("note", "")),
         )
         layers.append(Layer(info=info, sources=dict(stored.arrays)))

@@ -1,0 +1,228 @@
+"""The HDF5 reader (interfaces.md section 1, and section 3 for state-dict weight files).
+
+Datasets are read lazily: blocks of samples go straight into the caller's reused buffer with
+``Dataset.read_direct``. A dump must be self-contained, so datasets reached through external links,
+stored in external raw files, or assembled as virtual datasets are refused before any read. Soft
+links are followed, but only to objects inside the same file.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Any, Mapping
+
+import h5py
+import numpy as np
+
+from actdoc.errors import InvalidDump, UnreadableDump, UnsafeDump, describe
+from actdoc.io import statedict
+from actdoc.io.base import RawDump, RawLayer
+from actdoc.model import LAYER_ARRAYS
+
+SIGNATURE = b"\x89HDF\r\n\x1a\n"
+#: Largest user block searched for the signature (HDF5 allows 512 bytes times a power of two).
+MAX_USERBLOCK = 1 << 30
+READ_ERRORS = (OSError, ValueError, RuntimeError, KeyError)
+
+
+def find_signature(path: Path) -> bool:
+    """True when the HDF5 signature sits at offset 0 or after a user block (512, 1024, ...)."""
+    with open(path, "rb") as handle:
+        if handle.read(8) == SIGNATURE:
+            return True
+        size = path.stat().st_size
+        offset = 512
+        while offset + 8 <= min(size, MAX_USERBLOCK + 8):
+            handle.seek(offset)
+            if handle.read(8) == SIGNATURE:
+                return True
+            offset *= 2
+    return False
+
+
+class HDF5Source:
+    """An ArraySource over one h5py Dataset of an open file."""
+
+    def __init__(self, dataset: h5py.Dataset, path: Path, layer: str | None, array: str):
+        self._ds = dataset
+        self._where = describe(path, layer, array)
+        self.shape = tuple(int(n) for n in dataset.shape)
+        self.dtype = dataset.dtype
+
+    def _failed(self, exc: Exception) -> UnreadableDump:
+        return UnreadableDump(f"{self._where}: reading the data failed; the file is truncated or "
+                              f"corrupt ({exc})")
+
+    def read_samples(self, start: int, stop: int, out: np.ndarray | None = None) -> np.ndarray:
+        """Rows ``start:stop``; into ``out`` with read_direct when it is a fitting C buffer."""
+        stop = min(stop, self.shape[0])
+        rows = (stop - start,) + self.shape[1:]
+        try:
+            if (out is not None and out.shape == rows and out.dtype == self.dtype
+                    and out.flags.c_contiguous and out.flags.writeable):
+                if out.size:
+                    self._ds.read_direct(out, np.s_[start:stop])
+                return out
+            return self._ds[start:stop]
+        except READ_ERRORS as exc:
+            raise self._failed(exc) from None
+
+    def read_unit(self, unit: int) -> np.ndarray:
+        try:
+            return self._ds[:, unit]
+        except READ_ERRORS as exc:
+            raise self._failed(exc) from None
+
+    def read_all(self) -> np.ndarray:
+        try:
+            return self._ds[()]
+        except READ_ERRORS as exc:
+            raise self._failed(exc) from None
+
+
+def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
+                    array: str) -> h5py.Dataset | None:
+    """The dataset ``group[name]`` after the self-containment checks, or None if it is absent.
+
+    Refuses external links, soft links that leave the file, external raw storage and virtual
+    datasets; each refusal names the file, layer and array.
+    """
+    where = describe(path, layer, array)
+    link = group.get(name, getlink=True)
+    if link is None:
+        return None
+    if isinstance(link, h5py.ExternalLink):
+        raise UnsafeDump(f"{where}: is an external link to '{link.filename}'; a dump must be "
+                         f"self-contained")
+    try:
+        obj = group[name]
+    except READ_ERRORS as exc:
+        raise UnreadableDump(f"{where}: cannot be opened ({exc})") from None
+    if not isinstance(obj, h5py.Dataset):
+        raise InvalidDump(f"{where}: expected a dataset, found a group")
+    if Path(obj.file.filename).resolve() != Path(group.file.filename).resolve():
+        raise UnsafeDump(f"{where}: a link leads to another file; a dump must be self-contained")
+    if obj.is_virtual:
+        raise UnsafeDump(f"{where}: is a virtual dataset assembled from other files; a dump must "
+                         f"be self-contained")
+    if obj.id.get_create_plist().get_external_count() > 0:
+        raise UnsafeDump(f"{where}: keeps its data in external raw files; a dump must be "
+                         f"self-contained")
+    return obj
+
+
+def plain_attrs(obj: h5py.HLObject) -> dict[str, Any]:
+    """Attributes as Python values (bytes decoded, 1-element arrays unwrapped)."""
+    out: dict[str, Any] = {}
+    for key, value in obj.attrs.items():
+        if isinstance(value, bytes):
+            value = value.decode("utf-8", "replace")
+        elif isinstance(value, np.ndarray) and value.size == 1:
+            value = value.reshape(()).item()
+        elif isinstance(value, np.generic):
+            value = value.item()
+        out[key] = value.decode("utf-8", "replace") if isinstance(value, bytes) else value
+    return out
+
+
+def tracks_order(group: h5py.Group) -> bool:
+    """Whether the group records link creation order (h5py iterates in that order then)."""
+    return bool(group.id.get_create_plist().get_link_creation_order()
+                & h5py.h5p.CRT_ORDER_TRACKED)
+
+
+def layer_groups(handle: h5py.File, path: Path) -> list[tuple[str, h5py.Group]]:
+    """The groups under /layers, in the group's iteration order, refusing external links."""
+    layers = handle["layers"]
+    if not isinstance(layers, h5py.Group):
+        raise InvalidDump(f"{describe(path)}: '/layers' is a dataset; expected a group")
+    out = []
+    for name in layers:
+        link = layers.get(name, getlink=True)
+        if isinstance(link, h5py.ExternalLink):
+            raise UnsafeDump(f"{describe(path, name)}: the layer is an external link to "
+                             f"'{link.filename}'; a dump must be self-contained")
+        group = layers[name]
+        if isinstance(group, h5py.Group):
+            out.append((name, group))
+    return out
+
+
+def read_layers_layout(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...], str]:
+    """RawLayers of the /layers layout and how to order them when ``order`` is missing."""
+    raw = []
+    for position, (name, group) in enumerate(layer_groups(handle, path)):
+        arrays = {}
+        for array in LAYER_ARRAYS:
+            ds = checked_dataset(group, array, path, name, array)
+            if ds is not None:
+                arrays[array] = HDF5Source(ds, path, name, array)
+        raw.append(RawLayer(name=name, attrs=plain_attrs(group), arrays=arrays,
+                            position=position))
+    ordering = "position" if tracks_order(handle["layers"]) else "natural"
+    return tuple(raw), ordering
+
+
+def read_state_dict(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...], str]:
+    """RawLayers from root datasets named ``<layer>.weight`` / ``<layer>.bias``."""
+    names = [name for name in handle if statedict.parameter_of(name) is not None]
+    if not tracks_order(handle):
+        from actdoc.io.base import natural_key
+
+        names.sort(key=natural_key)
+
+    def source(key: str) -> HDF5Source:
+        layer, array = statedict.parameter_of(key)
+        return HDF5Source(checked_dataset(handle, key, path, layer, array), path, layer, array)
+
+    return statedict.raw_layers(names, source), "position"
+
+
+def probe_input(handle: h5py.File, path: Path) -> HDF5Source | None:
+    """/probe/input when present (checked like any dataset)."""
+    probe = handle.get("probe")
+    if not isinstance(probe, h5py.Group) or isinstance(handle.get("probe", getlink=True),
+                                                        h5py.ExternalLink):
+        return None
+    ds = checked_dataset(probe, "input", path, None, "probe/input")
+    return None if ds is None else HDF5Source(ds, path, None, "probe/input")
+
+
+class HDF5Reader:
+    """Reader for HDF5 dumps: the /layers layout, or a state-dict weight file."""
+
+    name = "hdf5"
+
+    def sniff(self, head: bytes) -> bool:
+        return head[:8] == SIGNATURE
+
+    def read(self, path: Path, options: Mapping[str, Any]) -> RawDump:
+        try:
+            handle = h5py.File(path, "r")
+        except READ_ERRORS as exc:
+            raise UnreadableDump(f"{describe(path)}: not a readable HDF5 file; it is truncated or "
+                                 f"corrupt ({exc})") from None
+        try:
+            if "layers" in handle:
+                layers, ordering = read_layers_layout(handle, path)
+            else:
+                layers, ordering = read_state_dict(handle, path)
+            probe = probe_input(handle, path)
+        except BaseException:
+            handle.close()
+            raise
+        return RawDump(path=path, format="hdf5", layers=layers, probe_input=probe,
+                       closer=handle.close, ordering=ordering)
+
+
+def chunk_shape(units: int, spatial: tuple[int, ...], rows: int = 1024,
+                unit_chunk: int = 256) -> tuple[int, ...]:
+    """The writer's chunk shape: ``rows`` samples by up to 256 units (whole spatial maps),
+    with rows cut so a chunk of a spatial layer holds about as many values as (1024, 256)."""
+    units_part = max(1, min(units, unit_chunk))
+    budget = max(1, (1024 * 256) // (units_part * max(1, math.prod(spatial))))
+    return (max(1, min(rows, budget)), units_part) + tuple(spatial)
+
+
+READER = HDF5Reader()
