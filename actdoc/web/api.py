@@ -1,0 +1,92 @@
+"""The HTTP API of interfaces.md section 6, and the upload step the pages share with it."""
+
+from __future__ import annotations
+
+import re
+
+from flask import Blueprint, Response, current_app, jsonify, request, url_for
+from werkzeug.exceptions import BadRequest, NotFound
+
+from actdoc.reports import MEDIA_TYPES, render
+from actdoc.workspace import DumpRecord, UploadSpool
+
+blueprint = Blueprint("api", __name__, url_prefix="/api")
+
+#: File endings of the findings downloads and the report format each one names.
+DOWNLOADS = {"json": "json", "csv": "csv", "md": "md", "txt": "text"}
+
+
+def state():
+    """The workspace and worker of the running app."""
+    return current_app.extensions["actdoc"]
+
+
+def receive_upload() -> tuple[DumpRecord, bool]:
+    """Adopt this request's multipart field ``file`` into the workspace and queue it.
+
+    Returns the record and whether it is new (False: the same bytes were already stored).
+    """
+    if request.mimetype != "multipart/form-data":
+        raise BadRequest("send the dump as multipart/form-data, in a field named 'file'")
+    upload = request.files.get("file")
+    if upload is None or not upload.filename:
+        raise BadRequest("the request holds no file in the multipart field 'file'")
+    workspace = state().workspace
+    if isinstance(upload.stream, UploadSpool):
+        record, created = workspace.adopt(upload.stream)
+    else:
+        record, created = workspace.ingest(upload.stream, upload.filename)
+    if created:
+        state().worker.submit(record.id)
+    return record, created
+
+
+def dump_object(record: DumpRecord) -> dict:
+    """A dump as the API shows it, with links to its page and its findings."""
+    data = record.to_dict()
+    data["page"] = url_for("pages.overview", dump_id=record.id)
+    data["findings"] = url_for("api.findings", dump_id=record.id, ending="json")
+    return data
+
+
+@blueprint.post("/dumps")
+def upload():
+    record, created = receive_upload()
+    body = dump_object(record)
+    body["duplicate"] = not created
+    response = jsonify(body)
+    response.status_code = 201
+    response.headers["Location"] = url_for("api.dump", dump_id=record.id)
+    return response
+
+
+@blueprint.get("/dumps")
+def dumps():
+    return jsonify([dump_object(record) for record in state().workspace.list()])
+
+
+@blueprint.get("/dumps/<dump_id>")
+def dump(dump_id: str):
+    return jsonify(dump_object(state().workspace.get(dump_id)))
+
+
+@blueprint.get("/dumps/<dump_id>/findings.<ending>")
+def findings(dump_id: str, ending: str):
+    fmt = DOWNLOADS.get(ending)
+    if fmt is None:
+        raise NotFound(f"findings come as {', '.join('findings.' + e for e in DOWNLOADS)}")
+    workspace = state().workspace
+    record = workspace.get(dump_id)
+    response = Response(render(workspace.findings(dump_id), fmt), mimetype=None,
+                        content_type=MEDIA_TYPES[fmt])
+    if request.args.get("download"):
+        stem = re.sub(r"[^\w.-]", "_", record.name.rsplit(".", 1)[0]) or "dump"
+        response.headers["Content-Disposition"] = (
+            f'attachment; filename="{stem}-findings.{ending}"')
+    return response
+
+
+@blueprint.delete("/dumps/<dump_id>")
+def delete(dump_id: str):
+    state().workspace.delete(dump_id)
+    return Response(status=204)

@@ -1,0 +1,234 @@
+"""Plotly figures as plain dicts, built from Findings: the pages JSON.parse and draw them.
+
+No plotly Python objects: the figures are small dicts, cheap to build per request, and the same
+dicts appear in each page's JSON twin.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from actdoc.analysis.defaults import ROWS
+from actdoc.model import ActivationKind, Findings, LayerInfo, LayerReport
+from actdoc.neurons import Neuron
+
+INK = "#24303f"
+MUTED = "#6b7684"
+GRID = "#e6e9ee"
+ACCENT = "#1d6f6a"
+SATURATED_FILL = "rgba(201, 122, 28, 0.14)"
+LINEAR_FILL = "rgba(59, 102, 196, 0.12)"
+
+#: Colour of each unit state (the exclusive unit checks); "" is a unit no check names.
+STATE_COLOURS = {
+    "": "#5f9e8f", "dead": "#b3372f", "dormant": "#d9772b", "saturated": "#c99a1c",
+    "near_binary": "#7a4fb3", "linear_regime": "#3b66c4", "constant": "#8a8f98",
+    "non_finite": "#111111",
+}
+CHECK_COLOURS = {**STATE_COLOURS, "init_scale": "#2f8f5b", "vanishing_signal": "#4b5563",
+                 "exploding_signal": "#9f1239"}
+
+#: Settings that place the zones on the transfer curve (defaults from the analysis table).
+ZONE_SETTINGS = ("logistic_saturation_margin", "tanh_saturation_level", "linear_gain_share")
+
+
+def base_layout(title: str, **extra: Any) -> dict[str, Any]:
+    """The calm shared look: light grid, system font, room for a title."""
+    layout = {
+        "title": {"text": title, "x": 0.01, "font": {"size": 15, "color": INK}},
+        "font": {"family": "system-ui, -apple-system, Segoe UI, sans-serif", "size": 12,
+                 "color": INK},
+        "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#ffffff",
+        "margin": {"l": 56, "r": 24, "t": 48, "b": 48},
+        "xaxis": {"gridcolor": GRID, "zerolinecolor": GRID},
+        "yaxis": {"gridcolor": GRID, "zerolinecolor": GRID},
+        "legend": {"orientation": "h", "y": -0.2},
+        "hovermode": "closest",
+    }
+    for key, value in extra.items():
+        if isinstance(value, dict) and isinstance(layout.get(key), dict):
+            layout[key] = {**layout[key], **value}
+        else:
+            layout[key] = value
+    return layout
+
+
+def depth_fractions(findings: Findings, checks: Sequence[str]) -> dict[str, Any]:
+    """Share of each layer's units in each check, across depth."""
+    names = [report.name for report in findings.layers]
+    traces = []
+    for check in checks:
+        shares = [report.fractions.get(check) for report in findings.layers]
+        if not any(share for share in shares if share is not None):
+            continue
+        traces.append({"type": "scatter", "mode": "lines+markers", "name": check,
+                       "x": names, "y": shares,
+                       "line": {"color": CHECK_COLOURS.get(check, MUTED), "width": 2},
+                       "hovertemplate": "%{x}: %{y:.1%} " + check + "<extra></extra>"})
+    return {"data": traces, "layout": base_layout(
+        "Share of units in each check, by depth",
+        yaxis={"tickformat": ".0%", "rangemode": "tozero", "title": {"text": "share of units"}},
+        xaxis={"type": "category"})}
+
+
+def depth_signal(findings: Findings) -> dict[str, Any]:
+    """Output scale and gradient gain across depth (log scale: both are ratios of size)."""
+    names = [report.name for report in findings.layers]
+    traces = []
+    for field, label, colour in (("output_scale", "output scale", ACCENT),
+                                 ("gradient_gain", "gradient gain", "#b35c2e")):
+        values = [getattr(report, field) for report in findings.layers]
+        if all(v is None for v in values):
+            continue
+        traces.append({"type": "scatter", "mode": "lines+markers", "name": label,
+                       "x": names, "y": [v if v is not None and v > 0 else None for v in values],
+                       "line": {"color": colour, "width": 2}})
+    return {"data": traces, "layout": base_layout(
+        "Output scale and gradient gain, by depth",
+        yaxis={"type": "log", "title": {"text": "size (log)"}}, xaxis={"type": "category"})}
+
+
+def zone_shapes(info: LayerInfo, settings: Mapping[str, float]) -> tuple[list, list]:
+    """Shaded bands for the saturated and near-linear zones of the layer's kind, with labels."""
+    values = {name: float(settings.get(name, ROWS[name].default)) for name in ZONE_SETTINGS}
+    neuron = Neuron(info.kind, info.negative_slope, info.threshold)
+    shapes, notes = [], []
+    saturation = neuron.saturation_zone(values["logistic_saturation_margin"],
+                                        values["tanh_saturation_level"])
+    if saturation is not None:
+        for x0, x1 in ((None, saturation.z_low), (saturation.z_high, None)):
+            shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 1,
+                           "x0": x0 if x0 is not None else -1e6,
+                           "x1": x1 if x1 is not None else 1e6,
+                           "fillcolor": SATURATED_FILL, "line": {"width": 0}, "layer": "below"})
+        notes.append({"x": saturation.z_high, "y": 1, "xref": "x", "yref": "paper",
+                      "text": "saturated beyond", "showarrow": False, "xanchor": "left",
+                      "yanchor": "bottom", "font": {"size": 11, "color": "#8a5a12"}})
+    linear = neuron.linear_zone(values["linear_gain_share"])
+    if linear is not None:
+        shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 1,
+                       "x0": linear.z_low, "x1": linear.z_high, "fillcolor": LINEAR_FILL,
+                       "line": {"width": 0}, "layer": "below"})
+        notes.append({"x": 0, "y": 1, "xref": "x", "yref": "paper", "text": "near-linear",
+                      "showarrow": False, "yanchor": "bottom",
+                      "font": {"size": 11, "color": "#2c4f9c"}})
+    return shapes, notes
+
+
+def curve_trace(info: LayerInfo, low: float, high: float) -> dict[str, Any] | None:
+    """The layer's transfer function f(z) between ``low`` and ``high``, on the right axis."""
+    if not np.isfinite([low, high]).all() or high <= low:
+        return None
+    z = np.linspace(low, high, 241)
+    y = Neuron(info.kind, info.negative_slope, info.threshold).output(z)
+    return {"type": "scatter", "mode": "lines", "name": f"f(z) = {info.kind.value}",
+            "x": z, "y": y, "yaxis": "y2", "line": {"color": INK, "width": 2},
+            "hovertemplate": "z %{x:.3g} → f %{y:.3g}<extra></extra>"}
+
+
+def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
+                   colour: str = "#7fb2a8") -> dict[str, Any]:
+    edges = np.asarray(edges, dtype=float)
+    return {"type": "bar", "name": name, "x": (edges[:-1] + edges[1:]) / 2,
+            "y": np.asarray(counts), "width": np.diff(edges), "marker": {"color": colour},
+            "hovertemplate": "%{x:.3g}: %{y} observations<extra></extra>"}
+
+
+def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
+                       settings: Mapping[str, float], title: str,
+                       band: Sequence[float] | None = None) -> dict[str, Any]:
+    """Histogram of total inputs with f(z) drawn over it and the zones shaded.
+
+    ``band`` (low, high) marks a range of z, e.g. the middle 90% of one unit's inputs.
+    """
+    edges = np.asarray(edges, dtype=float)
+    traces = [histogram_bars(edges, counts, "total inputs")]
+    finite = edges[np.isfinite(edges)]
+    low, high = (float(finite.min()), float(finite.max())) if finite.size else (-1.0, 1.0)
+    if high - low < 1e-9:
+        low, high = low - 1.0, high + 1.0
+    curve = curve_trace(info, low, high)
+    if curve is not None:
+        traces.append(curve)
+    shapes, notes = zone_shapes(info, settings)
+    if band is not None and np.isfinite(band).all():
+        shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 0.04,
+                       "x0": band[0], "x1": band[1], "fillcolor": ACCENT, "line": {"width": 0}})
+    return {"data": traces, "layout": base_layout(
+        title, shapes=shapes, annotations=notes, bargap=0,
+        xaxis={"title": {"text": "total input z"}, "range": [low, high]},
+        yaxis={"title": {"text": "observations"}},
+        yaxis2={"overlaying": "y", "side": "right", "showgrid": False,
+                "title": {"text": "output f(z)"}})}
+
+
+#: Unit map axes per kind: (x column, x label, y column, y label).
+UNIT_MAP_AXES = {
+    "squashing": ("low_fraction", "share of inputs saturated low",
+                  "high_fraction", "share of inputs saturated high"),
+    "rectified": ("active_fraction", "share of inputs where the unit is active",
+                  "std", "spread of the output (std)"),
+    "other": ("mean", "mean output", "std", "spread of the output (std)"),
+}
+
+
+def unit_map_axes(kind: ActivationKind) -> tuple[str, str, str, str]:
+    if kind in (ActivationKind.LOGISTIC, ActivationKind.TANH):
+        return UNIT_MAP_AXES["squashing"]
+    if kind in (ActivationKind.RELU, ActivationKind.LEAKY_RELU, ActivationKind.THRESHOLD,
+                ActivationKind.STOCHASTIC_BINARY):
+        return UNIT_MAP_AXES["rectified"]
+    return UNIT_MAP_AXES["other"]
+
+
+def unit_map(report: LayerReport) -> dict[str, Any] | None:
+    """Every unit as a point, coloured by state; a click opens the unit page (customdata)."""
+    x_col, x_label, y_col, y_label = unit_map_axes(report.info.kind)
+    table = report.unit_table
+    if x_col not in table or y_col not in table:
+        return None
+    states = np.asarray(table.get("state", np.full(report.info.units, "")), dtype=str)
+    traces = []
+    for state in sorted(set(states.tolist()), key=lambda s: (s != "", s)):
+        picked = np.flatnonzero(states == state)
+        traces.append({
+            "type": "scatter", "mode": "markers", "name": state or "no finding",
+            "x": np.asarray(table[x_col])[picked], "y": np.asarray(table[y_col])[picked],
+            "customdata": picked,
+            "marker": {"color": STATE_COLOURS.get(state, MUTED), "size": 7, "opacity": 0.8},
+            "hovertemplate": "unit %{customdata}<br>" + x_col + " %{x:.3g}<br>" + y_col
+                             + " %{y:.3g}<extra>" + (state or "no finding") + "</extra>"})
+    return {"data": traces, "layout": base_layout(
+        "Unit map (click a unit to open it)",
+        xaxis={"title": {"text": x_label}}, yaxis={"title": {"text": y_label}})}
+
+
+def per_unit_bars(values: np.ndarray, title: str, y_label: str,
+                  reference: float | None = None) -> dict[str, Any]:
+    """One bar per unit (incoming weight norms), with an optional reference line."""
+    values = np.asarray(values, dtype=float)
+    shapes = []
+    if reference is not None and np.isfinite(reference):
+        shapes.append({"type": "line", "xref": "paper", "x0": 0, "x1": 1, "y0": reference,
+                       "y1": reference, "line": {"color": "#b35c2e", "dash": "dash"}})
+    return {"data": [{"type": "bar", "x": np.arange(values.size), "y": values,
+                      "customdata": np.arange(values.size), "marker": {"color": "#7fb2a8"},
+                      "hovertemplate": "unit %{x}: %{y:.3g}<extra></extra>"}],
+            "layout": base_layout(title, shapes=shapes, bargap=0.05,
+                                  xaxis={"title": {"text": "unit"}},
+                                  yaxis={"title": {"text": y_label}})}
+
+
+def value_histogram(values: np.ndarray, title: str, x_label: str,
+                    bins: int = 40) -> dict[str, Any] | None:
+    """Histogram of a small array (biases, one unit's incoming weights)."""
+    values = np.asarray(values, dtype=float)
+    values = values[np.isfinite(values)]
+    if values.size == 0:
+        return None
+    counts, edges = np.histogram(values, bins=bins)
+    return {"data": [histogram_bars(edges, counts, x_label)], "layout": base_layout(
+        title, bargap=0, xaxis={"title": {"text": x_label}}, yaxis={"title": {"text": "count"}},
+        showlegend=False)}

@@ -1,0 +1,103 @@
+"""The dashboard's pages. Each one has a JSON twin: the same data with ``?format=json``."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import Blueprint, jsonify, redirect, render_template, request, url_for
+from werkzeug.exceptions import BadRequest, NotFound
+
+from actdoc.model import CAVEAT, LayerReport
+from actdoc.web import views
+from actdoc.web.api import dump_object, receive_upload, state
+from actdoc.web.embed import plain
+
+blueprint = Blueprint("pages", __name__)
+
+
+def respond(template: str, payload: dict[str, Any]):
+    """The page, or with ``?format=json`` the very data it was drawn from."""
+    if request.args.get("format") == "json":
+        return jsonify(plain(payload))
+    return render_template(template, **payload)
+
+
+def int_arg(name: str, default: int) -> int:
+    text = request.args.get(name)
+    if text is None or text == "":
+        return default
+    try:
+        return int(text)
+    except ValueError:
+        raise BadRequest(f"the query parameter '{name}' must be a whole number, not '{text}'")
+
+
+def layer_report(dump_id: str, index: int):
+    """The findings of a ready dump and one layer's report (404 for a layer it lacks)."""
+    findings = state().workspace.findings(dump_id)
+    if not 0 <= index < len(findings.layers):
+        raise NotFound(f"the dump has {len(findings.layers)} layers; there is no layer {index}")
+    return findings, findings.layers[index]
+
+
+def check_unit(report: LayerReport, unit: int) -> None:
+    if not 0 <= unit < report.info.units:
+        raise NotFound(f"layer '{report.name}' has {report.info.units} units; "
+                       f"there is no unit {unit}")
+
+
+@blueprint.get("/")
+def home():
+    records = state().workspace.list()
+    return respond("home.html", {"dumps": [dump_object(r) for r in records],
+                                 "demo": state().demo})
+
+
+@blueprint.post("/upload")
+def upload_form():
+    """The upload form without script: store, then go to the dump's page."""
+    record, _created = receive_upload()
+    return redirect(url_for("pages.overview", dump_id=record.id), code=303)
+
+
+@blueprint.get("/dumps/<dump_id>")
+def overview(dump_id: str):
+    record = state().workspace.get(dump_id)
+    payload: dict[str, Any] = {"dump": dump_object(record), "caveat": CAVEAT}
+    if record.ready:
+        payload.update(views.overview(state().workspace.findings(dump_id)))
+    return respond("overview.html", payload)
+
+
+@blueprint.post("/dumps/<dump_id>/delete")
+def delete_form(dump_id: str):
+    state().workspace.delete(dump_id)
+    return redirect(url_for("pages.home"), code=303)
+
+
+@blueprint.get("/dumps/<dump_id>/layers/<int:index>")
+def layer(dump_id: str, index: int):
+    record = state().workspace.get(dump_id)
+    findings, report = layer_report(dump_id, index)
+    payload = views.layer_detail(
+        findings, report, sort=request.args.get("sort", "unit"),
+        descending=request.args.get("order") == "desc", page=int_arg("page", 1),
+        per_page=int_arg("per_page", views.UNITS_PER_PAGE),
+        state=request.args.get("state") or None)
+    payload["dump"] = dump_object(record)
+    payload["layer_count"] = len(findings.layers)
+    # The unit map and norm chart append a clicked unit's index to this address.
+    payload["unit_url_base"] = url_for("pages.unit", dump_id=dump_id, index=index, unit=0)[:-1]
+    return respond("layer.html", payload)
+
+
+@blueprint.get("/dumps/<dump_id>/layers/<int:index>/units/<int:unit>")
+def unit(dump_id: str, index: int, unit: int):
+    workspace = state().workspace
+    record = workspace.get(dump_id)
+    findings, report = layer_report(dump_id, index)
+    check_unit(report, unit)
+    with workspace.open_dump(dump_id) as dump:
+        payload = views.unit_detail(findings, dump, report, unit)
+    payload["dump"] = dump_object(record)
+    return respond("unit.html", payload)

@@ -1,0 +1,212 @@
+"""What each page shows, as plain data: the HTML templates and the JSON twins read the same dicts.
+
+Nothing here knows about Flask; the blueprints add links and choose HTML or JSON.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from typing import Any
+
+import numpy as np
+
+from actdoc.model import CAVEAT, Dump, Findings, LayerReport
+from actdoc.reports.document import finding_entry, layer_entry, ordered_findings, verdict
+from actdoc.web import figures
+from actdoc.web.embed import plain
+
+#: Findings listed on the model overview, most serious first.
+TOP_FINDINGS = 8
+#: Units per page of the unit table: default and ceiling.
+UNITS_PER_PAGE = 50
+MAX_UNITS_PER_PAGE = 500
+#: Bins of the histograms drawn from one unit's values.
+UNIT_BINS = 60
+#: Incoming weights listed in a unit's JSON (the histogram always uses all of them).
+MAX_LISTED_WEIGHTS = 4096
+
+
+def findings_for_page(findings: Findings, entries: list) -> list[dict[str, Any]]:
+    """Findings as the document writes them, plus the layer's index for links."""
+    index = {report.name: report.info.index for report in findings.layers}
+    out = []
+    for finding in entries:
+        entry = finding_entry(finding)
+        entry["layer_index"] = index.get(finding.layer)
+        out.append(entry)
+    return out
+
+
+def layer_summary(report: LayerReport) -> dict[str, Any]:
+    """The document's layer entry with the extras a page shows."""
+    entry = layer_entry(report)
+    entry["spatial_shape"] = list(report.info.spatial_shape)
+    entry["has_weights"] = report.weights is not None
+    return entry
+
+
+def overview(findings: Findings) -> dict[str, Any]:
+    """The model overview: layers in forward order, the charts across depth, the top findings."""
+    ranked = ordered_findings(findings)
+    serious = [f for f in ranked if f.severity.rank > 0] or ranked
+    checks: list[str] = []
+    for report in findings.layers:
+        checks += [check for check in report.fractions if check not in checks]
+    return {
+        "source": plain(findings.source.__dict__),
+        "checks": checks,
+        "verdict": verdict(findings),
+        "layers": [layer_summary(report) for report in findings.layers],
+        "top_findings": findings_for_page(findings, serious[:TOP_FINDINGS]),
+        "finding_count": len(findings.findings),
+        "figures": {"depth": figures.depth_fractions(findings, checks),
+                    "signal": figures.depth_signal(findings)},
+        "caveat": findings.caveat or CAVEAT,
+    }
+
+
+def _sort_key(values: np.ndarray) -> np.ndarray:
+    """Values ordered with missing (NaN) ones last, whatever the direction."""
+    if values.dtype.kind in "fc":
+        return np.where(np.isnan(values), np.inf, values)
+    return values
+
+
+def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = False,
+              page: int = 1, per_page: int = UNITS_PER_PAGE,
+              state: str | None = None) -> dict[str, Any]:
+    """One page of the unit table, sorted and filtered on the server (thousands stay fast)."""
+    table = {name: np.asarray(values) for name, values in report.unit_table.items()}
+    units = report.info.units
+    table["unit"] = np.arange(units)
+    states = np.asarray(table.get("state", np.full(units, "")), dtype=str)
+    columns = ["unit", "state"] + [c for c in report.unit_table if c != "state"]
+    columns = [c for c in columns if c in table]
+    picked = np.arange(units) if not state else np.flatnonzero(
+        states == ("" if state == "none" else state))
+    if sort not in table:
+        sort = "unit"
+    keys = _sort_key(table[sort][picked])
+    order = np.argsort(keys, kind="stable")
+    if descending:
+        finite = keys[order] != np.inf if keys.dtype.kind == "f" else np.ones(order.size, bool)
+        order = np.concatenate([order[finite][::-1], order[~finite]])
+    ordered = picked[order]
+    per_page = max(1, min(MAX_UNITS_PER_PAGE, per_page))
+    pages = max(1, math.ceil(ordered.size / per_page))
+    page = max(1, min(page, pages))
+    shown = ordered[(page - 1) * per_page: page * per_page]
+    rows = [{column: plain(table[column][i]) for column in columns} for i in shown]
+    return {"columns": columns, "rows": rows, "page": page, "pages": pages,
+            "per_page": per_page, "total": int(ordered.size), "sort": sort,
+            "descending": descending, "state": state or "",
+            "next_order": {c: ("asc" if descending else "desc") if c == sort
+                           else ("asc" if c in ("unit", "state") else "desc") for c in columns},
+            "states": dict(Counter(s or "none" for s in states.tolist()))}
+
+
+def weights_panel(report: LayerReport) -> dict[str, Any] | None:
+    """Incoming scale against its reference, with the per-unit norms and bias charts."""
+    summary = report.weights
+    if summary is None:
+        return None
+    ratio = summary.std / summary.reference_std if summary.reference_std else None
+    # A unit with Var(w) = reference_std**2 has expected squared norm fan_in * reference_std**2.
+    expected_norm = math.sqrt(summary.fan_in) * summary.reference_std
+    panel = {
+        "fan_in": summary.fan_in, "fan_out": summary.fan_out, "std": plain(summary.std),
+        "reference_std": plain(summary.reference_std), "reference": summary.reference,
+        "ratio": plain(ratio), "expected_norm": plain(expected_norm),
+        "figures": {"norms": figures.per_unit_bars(
+            summary.row_norms, "Incoming weight norm per unit", "L2 norm of incoming weights",
+            reference=expected_norm)},
+    }
+    if summary.bias is not None:
+        panel["figures"]["bias"] = figures.value_histogram(summary.bias, "Biases", "bias")
+    return panel
+
+
+def layer_detail(findings: Findings, report: LayerReport, **table_options: Any) -> dict:
+    """The layer page: inputs under the curve, the unit table and map, the weights."""
+    info = report.info
+    hist = report.histograms.get("preact")
+    inputs = None
+    if hist is not None and np.asarray(hist.counts).size:
+        inputs = figures.inputs_under_curve(info, hist.edges, hist.counts, findings.settings,
+                                            f"Total inputs of {info.name} under f(z)")
+    output_hist = report.histograms.get("output")
+    outputs = None
+    if output_hist is not None and np.asarray(output_hist.counts).size:
+        outputs = {"data": [figures.histogram_bars(output_hist.edges, output_hist.counts,
+                                                   "outputs")],
+                   "layout": figures.base_layout(f"Outputs of {info.name}", bargap=0,
+                                                 showlegend=False,
+                                                 xaxis={"title": {"text": "output y"}},
+                                                 yaxis={"title": {"text": "observations"}})}
+    return {
+        "layer": {**layer_summary(report), "kind_note": info.kind_note},
+        "findings": findings_for_page(findings, sorted(
+            findings.for_layer(info.name), key=lambda f: -f.severity.rank)),
+        "units": unit_rows(report, **table_options),
+        "weights": weights_panel(report),
+        "figures": {"inputs": inputs, "outputs": outputs, "unit_map": figures.unit_map(report)},
+        "caveat": findings.caveat or CAVEAT,
+    }
+
+
+def _values_histogram(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return np.array([0.0, 1.0]), np.array([0]), int(values.size)
+    low, high = float(finite.min()), float(finite.max())
+    if high - low < 1e-12:
+        low, high = low - 0.5, high + 0.5
+    counts, edges = np.histogram(finite, bins=UNIT_BINS, range=(low, high))
+    return edges, counts, int(values.size - finite.size)
+
+
+def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) -> dict:
+    """One unit: its own histograms read from the stored dump, weights, and findings."""
+    info = report.info
+    layer = dump.layer(info.name)
+    row = {column: plain(np.asarray(values)[unit])
+           for column, values in report.unit_table.items()}
+    charts: dict[str, Any] = {}
+    nonfinite = {}
+    if info.has("preact"):
+        z = layer.unit_values("preact", unit)
+        edges, counts, nonfinite["preact"] = _values_histogram(z)
+        finite = z[np.isfinite(z)]
+        band = np.percentile(finite, [5, 95]) if finite.size else None
+        charts["preact"] = figures.inputs_under_curve(
+            info, edges, counts, findings.settings,
+            f"Unit {unit}: total inputs under f(z) (bar below: middle 90%)", band=band)
+    if info.has("output"):
+        y = layer.unit_values("output", unit)
+        edges, counts, nonfinite["output"] = _values_histogram(y)
+        charts["output"] = {"data": [figures.histogram_bars(edges, counts, "outputs")],
+                            "layout": figures.base_layout(
+                                f"Unit {unit}: outputs", bargap=0, showlegend=False,
+                                xaxis={"title": {"text": "output y"}},
+                                yaxis={"title": {"text": "observations"}})}
+    weights = None
+    incoming = layer.weight()
+    if incoming is not None:
+        row_weights = incoming[unit]
+        bias = layer.bias()
+        weights = {"count": int(row_weights.size),
+                   "norm": plain(float(np.linalg.norm(row_weights))),
+                   "bias": None if bias is None else plain(bias[unit]),
+                   "values": plain(row_weights[:MAX_LISTED_WEIGHTS])}
+        charts["weights"] = figures.value_histogram(row_weights, f"Unit {unit}: incoming "
+                                                    "weights", "weight")
+    named = [f for f in findings.for_layer(info.name) if unit in f.units]
+    entries = findings_for_page(findings, named)
+    for finding, entry in zip(named, entries):
+        if finding.unit_measures:
+            entry["unit_measure"] = plain(finding.unit_measures[finding.units.index(unit)])
+        entry.pop("units", None)
+    return {"layer": layer_summary(report), "unit": unit, "row": row,
+            "state": row.get("state") or "", "nonfinite": nonfinite, "weights": weights,
+            "findings": entries, "figures": charts, "caveat": findings.caveat or CAVEAT}

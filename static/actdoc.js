@@ -1,0 +1,111 @@
+/* actdoc dashboard behaviour: draw the embedded figures, upload dumps, follow analyses. */
+(function () {
+  "use strict";
+
+  /* Figures travel as JSON in <script type="application/json"> blocks; draw each one. */
+  function drawCharts() {
+    if (typeof Plotly === "undefined") return;
+    document.querySelectorAll(".chart[data-figure]").forEach(function (el) {
+      var source = document.getElementById(el.dataset.figure);
+      if (!source) return;
+      var figure = JSON.parse(source.textContent);
+      Plotly.newPlot(el, figure.data, figure.layout,
+        { responsive: true, displaylogo: false, modeBarButtonsToRemove: ["select2d", "lasso2d"] });
+      if (el.dataset.unitUrl) {
+        el.on("plotly_click", function (event) {
+          var point = event.points && event.points[0];
+          if (point && point.customdata !== undefined) {
+            window.location.href = el.dataset.unitUrl + point.customdata;
+          }
+        });
+      }
+      el.dataset.drawn = "yes";
+    });
+  }
+
+  /* Upload through the API; the file picker and drag and drop both end here. */
+  function upload(zone, file) {
+    var message = zone.querySelector(".message");
+    var body = new FormData();
+    body.append("file", file);
+    message.className = "message";
+    message.textContent = "Sending " + file.name + " …";
+    fetch(zone.dataset.api, { method: "POST", body: body, headers: { Accept: "application/json" } })
+      .then(function (response) {
+        return response.json().then(function (data) { return { ok: response.ok, data: data }; });
+      })
+      .then(function (result) {
+        if (!result.ok) throw new Error(result.data.error || "the upload failed");
+        message.textContent = result.data.duplicate
+          ? "Already on the shelf; opening it." : "Stored; the analysis has started.";
+        window.location.href = result.data.page;
+      })
+      .catch(function (error) {
+        message.className = "message error";
+        message.textContent = error.message;
+      });
+  }
+
+  function wireUploads() {
+    document.querySelectorAll(".dropzone").forEach(function (zone) {
+      var input = zone.querySelector("input[type=file]");
+      var submit = zone.querySelector("button[type=submit]");
+      if (submit) submit.hidden = true;  /* with script, choosing a file is enough */
+      input.addEventListener("change", function () {
+        if (input.files.length) upload(zone, input.files[0]);
+      });
+      ["dragenter", "dragover"].forEach(function (name) {
+        zone.addEventListener(name, function (event) {
+          event.preventDefault();
+          zone.classList.add("over");
+        });
+      });
+      ["dragleave", "drop"].forEach(function (name) {
+        zone.addEventListener(name, function () { zone.classList.remove("over"); });
+      });
+      zone.addEventListener("drop", function (event) {
+        event.preventDefault();
+        if (event.dataTransfer.files.length) upload(zone, event.dataTransfer.files[0]);
+      });
+    });
+  }
+
+  /* Progress bars poll the dump's JSON and reload the page once the analysis has ended. */
+  function followProgress() {
+    var bars = document.querySelectorAll("[data-poll]");
+    if (!bars.length) return;
+    function poll() {
+      var pending = 0;
+      var requests = Array.prototype.map.call(bars, function (bar) {
+        return fetch(bar.dataset.poll, { headers: { Accept: "application/json" } })
+          .then(function (response) { return response.json(); })
+          .then(function (dump) {
+            var fill = bar.querySelector(".progress > div");
+            var label = bar.querySelector(".progress-label");
+            if (fill) fill.style.width = Math.round(dump.progress * 100) + "%";
+            if (label) label.textContent = dump.status + " · " + Math.round(dump.progress * 100) + "%";
+            if (dump.status === "queued" || dump.status === "analysing") pending += 1;
+          });
+      });
+      Promise.all(requests).then(function () {
+        if (pending) window.setTimeout(poll, 600); else window.location.reload();
+      }).catch(function () { window.setTimeout(poll, 2000); });
+    }
+    window.setTimeout(poll, 400);
+  }
+
+  function wireConfirms() {
+    document.querySelectorAll("form[data-confirm]").forEach(function (form) {
+      form.addEventListener("submit", function (event) {
+        if (!window.confirm(form.dataset.confirm)) event.preventDefault();
+      });
+    });
+  }
+
+  document.addEventListener("DOMContentLoaded", function () {
+    wireConfirms();
+    drawCharts();
+    wireUploads();
+    followProgress();
+  });
+})();
