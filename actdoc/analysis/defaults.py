@@ -1,0 +1,212 @@
+"""Every threshold of the analysis, in one documented table, and the frozen ``Settings``.
+
+Each row gives the setting's name, default, meaning, the reason for the default and its source
+("common practice" where the value is a convention of the trade rather than a published result).
+A TOML file (top-level ``name = value`` pairs) and ``name=value`` overrides replace defaults;
+an unknown name or an unusable value raises ``InvalidSetting`` with one sentence.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterable, Mapping
+
+from actdoc.errors import InvalidSetting
+
+
+@dataclass(frozen=True)
+class SettingRow:
+    """One threshold: its default, what it means, why, and where the value comes from."""
+
+    name: str
+    default: float
+    meaning: str
+    reason: str
+    source: str
+    low: float
+    high: float
+    integer: bool = False
+    low_inclusive: bool = False
+    high_inclusive: bool = True
+
+    def check(self, value: Any, origin: str) -> float | int:
+        """The value as a number inside this row's range, or InvalidSetting naming the origin."""
+        try:
+            number = float(value)
+        except (TypeError, ValueError):
+            number = math.nan
+        if isinstance(value, bool):
+            number = math.nan
+        low_ok = number >= self.low if self.low_inclusive else number > self.low
+        high_ok = number <= self.high if self.high_inclusive else number < self.high
+        integral = not self.integer or float(number).is_integer()
+        if not (low_ok and high_ok and integral):
+            lo = "[" if self.low_inclusive else "("
+            hi = "]" if self.high_inclusive else ")"
+            what = "a whole number" if self.integer else "a number"
+            raise InvalidSetting(
+                f"setting '{self.name}' = {value!r} ({origin}): expected {what} in "
+                f"{lo}{self.low:g}, {self.high:g}{hi}")
+        return int(number) if self.integer else number
+
+
+INF = math.inf
+
+TABLE: tuple[SettingRow, ...] = (
+    SettingRow("logistic_saturation_margin", 0.01,
+               "a logistic output within this distance of 0 or 1 is saturated (|z| > ln 99 for "
+               "0.01); also the firing-probability edges of stochastic binary units",
+               "at 0.01 the gain s(1-s) is below 0.0099, 4% of its peak of 0.25",
+               "common practice; the gain figure follows from s(1-s)", 0.0, 0.5),
+    SettingRow("tanh_saturation_level", 0.99,
+               "a tanh output with |y| above this is saturated (|z| > atanh 0.99 ~ 2.647)",
+               "at |y| = 0.99 the gain 1 - y^2 is below 0.02, 2% of its peak of 1",
+               "common practice; the gain figure follows from 1 - tanh^2", 0.0, 1.0,
+               high_inclusive=False),
+    SettingRow("linear_gain_share", 0.9,
+               "the near-linear zone is where f'(z) >= this share of max f' (logistic |z| <= "
+               "0.655, tanh |z| <= 0.328 at 0.9)",
+               "within 10% of the peak gain the unit is indistinguishable from a linear one",
+               "common practice", 0.0, 1.0, high_inclusive=False),
+    SettingRow("dormant_active_share", 0.01,
+               "a rectified unit active on fewer than this share of observations is dormant",
+               "a unit that fires on under 1% of inputs carries almost no information",
+               "common practice", 0.0, 1.0),
+    SettingRow("saturated_share", 0.95,
+               "a logistic or tanh unit with at least this share of observations saturated on "
+               "one side is saturated",
+               "leaves at most 5% of inputs where the unit can pass a useful gradient",
+               "common practice", 0.0, 1.0),
+    SettingRow("near_binary_share", 0.95,
+               "a unit with at least this share saturated (both sides) can be near-binary",
+               "the unit almost never produces an intermediate value",
+               "common practice", 0.0, 1.0),
+    SettingRow("near_binary_minority", 0.05,
+               "... and its less frequent saturated side holds at least this share",
+               "it then switches between the two asymptotes like a binary threshold unit",
+               "common practice", 0.0, 0.5),
+    SettingRow("linear_regime_share", 1.0,
+               "a logistic or tanh unit with at least this share of observations in the "
+               "near-linear zone is in the linear regime (1.0: it never leaves it)",
+               "such a unit adds no nonlinearity; the layer could be folded into the next",
+               "common practice", 0.0, 1.0),
+    SettingRow("constant_tolerance", 1e-6,
+               "a unit whose output range (max - min of finite values) is at most this times "
+               "max(1, max |y|) is constant",
+               "covers float rounding while catching units stuck at one value",
+               "common practice", 0.0, INF, low_inclusive=True),
+    SettingRow("signal_limit", 10.0,
+               "a layer whose output RMS is below 1/limit or above limit times that of the "
+               "first measured layer shows a vanishing or exploding signal",
+               "with Var(w) = 1/fan_in a ReLU stack halves the second moment per layer, so the "
+               "RMS passes 1/10 after about 7 layers",
+               "He et al. 2015 (ICCV), section 2.2", 1.0, INF, high_inclusive=False),
+    SettingRow("init_scale_factor", 4.0,
+               "incoming weight std outside [ref/factor, ref*factor] of the reference (He for "
+               "rectified kinds, Glorot for logistic, tanh and linear) is flagged",
+               "trained weights drift from their initial scale; a factor of 4 leaves room for "
+               "that while catching scales off by an order of magnitude",
+               "He et al. 2015 (ICCV) eq. 10; Glorot & Bengio 2010 (AISTATS) eq. 16; factor: "
+               "common practice", 1.0, INF, high_inclusive=False),
+    SettingRow("critical_share", 0.5,
+               "a dead, saturated or near-binary finding covering at least this share of its "
+               "layer's units is critical",
+               "half a layer not learning is a broken layer",
+               "common practice", 0.0, 1.0),
+    SettingRow("warning_share", 0.1,
+               "a unit-level finding covering at least this share of its layer's units is a "
+               "warning; below, it is info",
+               "a tenth of a layer idle is worth attention, a few units are not",
+               "common practice", 0.0, 1.0),
+    SettingRow("histogram_rows", 4096,
+               "histograms use at most about this many observation rows per layer, every k-th "
+               "row of the whole layer (k fixed by its size, so shards merge exactly)",
+               "a few thousand rows fix a histogram's shape; more only slows the pass",
+               "common practice", 1, 1e9, integer=True, low_inclusive=True),
+    SettingRow("block_observations", 4096,
+               "observations read per block from the dump",
+               "16 MiB for 1024 float32 units: large reads, flat memory",
+               "common practice", 1, 1e9, integer=True, low_inclusive=True),
+)
+
+ROWS: dict[str, SettingRow] = {row.name: row for row in TABLE}
+
+
+class _SettingsBase:
+    """Methods shared by the generated ``Settings`` dataclass."""
+
+    def as_mapping(self) -> dict[str, float]:
+        """Every setting by name (as Findings.settings records them)."""
+        return {row.name: getattr(self, row.name) for row in TABLE}
+
+    def replace(self, **changes: Any) -> "Settings":
+        """A copy with some settings changed (values checked like overrides)."""
+        checked = {k: _row(k, "keyword").check(v, "keyword") for k, v in changes.items()}
+        return _validated(dataclasses.replace(self, **checked), "keyword")
+
+
+Settings = dataclasses.make_dataclass(
+    "Settings",
+    [(row.name, int if row.integer else float, dataclasses.field(default=row.default))
+     for row in TABLE],
+    bases=(_SettingsBase,),
+    frozen=True,
+    namespace={"__doc__": "The thresholds of one analysis (see TABLE for each one's meaning).",
+               "__module__": __name__},
+)
+
+
+def _row(name: str, origin: str) -> SettingRow:
+    row = ROWS.get(name)
+    if row is None:
+        raise InvalidSetting(
+            f"unknown setting '{name}' ({origin}); known settings are {', '.join(ROWS)}")
+    return row
+
+
+def _validated(settings: Any, origin: str) -> Any:
+    if settings.warning_share > settings.critical_share:
+        raise InvalidSetting(
+            f"setting 'warning_share' = {settings.warning_share:g} ({origin}) is above "
+            f"'critical_share' = {settings.critical_share:g}; it must not be")
+    return settings
+
+
+def parse_override(text: str) -> tuple[str, str]:
+    """``name=value`` into its two halves."""
+    name, sep, value = str(text).partition("=")
+    if not sep or not name.strip():
+        raise InvalidSetting(f"override '{text}' (from --set): expected name=value")
+    return name.strip(), value.strip()
+
+
+def load_settings(config_path: str | Path | None = None,
+                  overrides: Iterable[str] | Mapping[str, Any] = ()) -> Any:
+    """Defaults, then the TOML file's values, then ``name=value`` overrides, all checked."""
+    values: dict[str, float | int] = {}
+    if config_path is not None:
+        values.update(_read_toml(Path(config_path)))
+    pairs = overrides.items() if isinstance(overrides, Mapping) else map(parse_override, overrides)
+    for name, value in pairs:
+        values[name] = _row(name, "from --set").check(value, "from --set")
+    origin = "from --set" if overrides else f"in {Path(config_path).name}" if config_path else ""
+    return _validated(Settings(**values), origin or "defaults")
+
+
+def _read_toml(path: Path) -> dict[str, float | int]:
+    try:
+        import tomllib
+    except ImportError:  # Python 3.10
+        import tomli as tomllib
+    origin = f"in {path.name}"
+    try:
+        with path.open("rb") as handle:
+            data = tomllib.load(handle)
+    except OSError as exc:
+        raise InvalidSetting(f"{path.name}: cannot read the settings file ({exc.strerror})")
+    except tomllib.TOMLDecodeError as exc:
+        raise InvalidSetting(f"{path.name}: not valid TOML ({exc})")
+    return {name: _row(name, origin).check(value, origin) for name, value in data.items()}

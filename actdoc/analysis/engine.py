@@ -1,0 +1,215 @@
+"""``analyze``: one pass over every layer, then the registered checks, then the Findings.
+
+Each layer's arrays are read once (``accumulate_layer``); everything after that works on the
+small per-unit statistics. Unit checks run in exclusivity order, each claiming its units so a
+unit is named by at most one of dead, dormant, saturated, near_binary, linear_regime, constant.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from actdoc.analysis.checks import Check, LayerInput, UnitInput, all_checks
+from actdoc.analysis.defaults import Settings
+from actdoc.analysis.stats import LayerStats, accumulate_layer
+from actdoc.analysis.summary import (
+    gradient_gain,
+    histograms,
+    output_scale,
+    unit_table,
+    weight_summary,
+)
+from actdoc.model import (
+    Dump,
+    Finding,
+    Findings,
+    Layer,
+    LayerReport,
+    LayerStatus,
+    Severity,
+    SourceInfo,
+    WeightSummary,
+)
+
+STATE_WIDTH = 16
+
+
+def source_info(dump: Dump) -> SourceInfo:
+    """File name, SHA-256 of the file's bytes where it exists (else ""), format, samples."""
+    path = Path(dump.path)
+    digest = ""
+    if path.is_file():
+        sha = hashlib.sha256()
+        with path.open("rb") as handle:
+            for chunk in iter(lambda: handle.read(1 << 20), b""):
+                sha.update(chunk)
+        digest = sha.hexdigest()
+    return SourceInfo(file=path.name, sha256=digest, format=dump.format, samples=dump.samples)
+
+
+def _severity(check: Check, named: int, units: int, settings: Settings) -> Severity:
+    if check.always_critical:
+        return Severity.CRITICAL
+    share = named / units if units else 0.0
+    if check.critical_by_share and share >= settings.critical_share:
+        return Severity.CRITICAL
+    return Severity.WARNING if share >= settings.warning_share else Severity.INFO
+
+
+def _aggregate(values: np.ndarray, how: str) -> float:
+    if values.size == 0:
+        return float("nan")
+    return float({"mean": np.mean, "max": np.max, "sum": np.sum}[how](values))
+
+
+def _unit_findings(layer: Layer, stats: LayerStats, checks: list[Check], settings: Settings,
+                   parameter_nonfinite: np.ndarray | None):
+    """Findings of the unit checks, the share of units per check, and each unit's state."""
+    info = layer.info
+    unit = UnitInput(info, stats, settings, parameter_nonfinite)
+    claimed = np.zeros(info.units, bool)
+    states = np.full(info.units, "", dtype=f"<U{STATE_WIDTH}")
+    sides = np.full(info.units, "", dtype="<U4")
+    findings, fractions = [], {}
+    for check in checks:
+        if not check.applies_to(info.kind):
+            continue
+        verdict = check.evaluate(unit)
+        if verdict is None:
+            continue
+        mask = np.asarray(verdict.mask, bool)
+        if check.rank is not None:
+            mask &= ~claimed
+            claimed |= mask
+            states[mask] = check.name
+        if check.name == "saturated" and stats.low is not None:
+            sides[mask] = np.where(stats.low[mask] >= stats.high[mask], "low", "high")
+        fractions[check.name] = float(mask.sum()) / info.units if info.units else 0.0
+        named = np.flatnonzero(mask)
+        if named.size == 0:
+            continue
+        values = np.asarray(verdict.values, np.float64)[named]
+        cause, remedy = check.advice(info.kind)
+        share = named.size / info.units
+        findings.append(Finding(
+            check=check.name,
+            severity=_severity(check, named.size, info.units, settings),
+            layer=info.name, units=tuple(int(u) for u in named),
+            measure=_aggregate(values, verdict.aggregate), threshold=float(verdict.threshold),
+            summary=(f"Layer '{info.name}': {named.size} of {info.units} units ({share:.1%}) "
+                     f"{verdict.phrase}."),
+            cause=cause, remedy=remedy, unit_measures=tuple(float(v) for v in values)))
+    return findings, fractions, states, sides
+
+
+def _layer_findings(layer_input: LayerInput, checks: list[Check]) -> list[Finding]:
+    findings = []
+    for check in checks:
+        verdict = check.evaluate(layer_input)
+        if verdict is None:
+            continue
+        cause, remedy = check.advice(layer_input.info.kind)
+        findings.append(Finding(
+            check=check.name, severity=Severity.WARNING, layer=layer_input.info.name, units=(),
+            measure=float(verdict.measure), threshold=float(verdict.threshold),
+            summary=f"Layer '{layer_input.info.name}': {verdict.summary}.",
+            cause=cause, remedy=remedy))
+    return findings
+
+
+def _status(findings: list[Finding]) -> LayerStatus:
+    ranks = [f.severity.rank for f in findings]
+    worst = max(ranks, default=0)
+    return {2: LayerStatus.CRITICAL, 1: LayerStatus.WARNING}.get(worst, LayerStatus.HEALTHY)
+
+
+def _measure_all(dump: Dump, settings: Settings, progress: Callable[[float], None] | None):
+    """Per-layer statistics (None for layers without activations), reporting progress."""
+    work = [layer.info.observations * max(1, layer.info.units)
+            if any(layer.info.has(a) for a in ("preact", "output")) else 0
+            for layer in dump.layers]
+    total = max(1, sum(work))
+    done = 0
+    measured: list[LayerStats | None] = []
+    for layer, size in zip(dump.layers, work):
+        if size == 0:
+            measured.append(None)
+            continue
+        per_row = max(1, layer.info.units)
+
+        def advance(rows: int, _per_row=per_row) -> None:
+            nonlocal done
+            done += rows * _per_row
+            if progress is not None:
+                progress(min(1.0, done / total) * 0.99)
+
+        measured.append(accumulate_layer(layer, settings, progress=advance))
+    return measured
+
+
+def analyze(dump: Dump, settings: Settings | None = None,
+            progress: Callable[[float], None] | None = None,
+            source: SourceInfo | None = None) -> Findings:
+    """Measure every layer of ``dump``, run every registered check, and return the Findings."""
+    settings = settings or Settings()
+    if progress is not None:
+        progress(0.0)
+    checks = all_checks()
+    unit_checks = [c for c in checks if c.scope == "unit"]
+    layer_checks = [c for c in checks if c.scope == "layer"]
+    measured = _measure_all(dump, settings, progress)
+    scales = [output_scale(stats) for stats in measured]
+    reference = next(((layer.name, scale) for layer, scale in zip(dump.layers, scales)
+                      if scale is not None and np.isfinite(scale) and scale > 0), (None, None))
+
+    reports, all_findings = [], []
+    for layer, stats, scale in zip(dump.layers, measured, scales):
+        info = layer.info
+        weights, bad_parameters = weight_summary(layer)
+        if stats is not None:
+            found, fractions, states, sides = _unit_findings(
+                layer, stats, unit_checks, settings, bad_parameters)
+        else:
+            found, fractions, states, sides = _parameter_only(layer, weights, bad_parameters,
+                                                              unit_checks, settings)
+        found += _layer_findings(LayerInput(info, stats, settings, weights, scale,
+                                            reference[0], reference[1]), layer_checks)
+        all_findings += found
+        reports.append(LayerReport(
+            info=info, fractions=fractions, status=_status(found), output_scale=scale,
+            gradient_gain=gradient_gain(stats),
+            unit_table=unit_table(stats, info.units, states, sides),
+            histograms=histograms(stats), weights=weights))
+    if progress is not None:
+        progress(1.0)
+    return Findings(source=source or source_info(dump), layers=tuple(reports),
+                    findings=tuple(all_findings), settings=settings.as_mapping())
+
+
+def _parameter_only(layer: Layer, weights: WeightSummary | None,
+                    bad_parameters: np.ndarray | None, unit_checks: list[Check],
+                    settings: Settings):
+    """A layer with weights but no recorded activations: only non-finite parameters apply."""
+    info = layer.info
+    states = np.full(info.units, "", dtype=f"<U{STATE_WIDTH}")
+    sides = np.full(info.units, "", dtype="<U4")
+    findings = []
+    if bad_parameters is not None and bad_parameters.any():
+        check = next(c for c in unit_checks if c.name == "non_finite")
+        named = np.flatnonzero(bad_parameters > 0)
+        cause, remedy = check.advice(info.kind)
+        findings.append(Finding(
+            check=check.name, severity=Severity.CRITICAL, layer=info.name,
+            units=tuple(int(u) for u in named), measure=float(bad_parameters.sum()),
+            threshold=0.0,
+            summary=(f"Layer '{info.name}': {named.size} of {info.units} units hold NaN or "
+                     f"infinite parameters."),
+            cause=cause, remedy=remedy,
+            unit_measures=tuple(float(v) for v in bad_parameters[named])))
+    fractions = {"non_finite": float((bad_parameters > 0).mean())} \
+        if bad_parameters is not None else {}
+    return findings, fractions, states, sides

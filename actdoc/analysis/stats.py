@@ -1,0 +1,312 @@
+"""One-pass, mergeable per-unit statistics of a layer's activations.
+
+``accumulate_layer`` reads a layer's preact and output once, block by block through
+``Layer.paired_blocks``, and works through each block in cache-sized row slices with reused
+buffers. ``LayerStats.merge`` combines the statistics of blocks, sample ranges (shards) or
+workers: counts, minima, maxima and histograms exactly, float sums within rounding.
+
+What is measured on which array:
+
+- output statistics (mean, spread, moments, min, max, mean |y|) are of y; a preact-only layer
+  gets y = f(z) (a stochastic binary unit: its firing probability logistic(z));
+- zones (saturated low/high, near-linear) are decided on z where it is stored, else on y against
+  the matching output edges (f is monotone for the kinds that have zones);
+- "active": relu y > 0; leaky_relu z > 0 (y > 0 is the same for a positive slope); threshold and
+  stochastic binary: the output is 1 (y > 0.5); a stochastic binary layer with z alone counts
+  as active the observations whose firing probability is above the low saturation edge;
+- an observation holding NaN or infinity in any stored array is counted as non-finite for that
+  unit and kept out of every other statistic.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+from typing import Callable
+
+import numpy as np
+
+from actdoc.analysis.defaults import Settings
+from actdoc.analysis.histograms import grids_for, sample_stride, sampled_rows
+from actdoc.analysis.moments import Moments, PowerSums
+from actdoc.model import ActivationKind, Layer
+from actdoc.neurons import NONNEGATIVE_OUTPUT, Neuron
+
+Kind = ActivationKind
+#: Bytes of float64 scratch per row slice: sized to stay in a core's L2 cache.
+SLICE_BYTES = 1 << 18
+#: Per-slice counts are summed as uint8, so a slice holds at most 255 rows.
+MAX_SLICE_ROWS = 255
+#: Kinds whose f' is not a function of y and the moments: summed element by element.
+ELEMENTWISE_GAIN = frozenset({Kind.SOFTPLUS, Kind.GELU, Kind.SILU, Kind.STOCHASTIC_BINARY})
+
+
+@dataclass
+class LayerStats:
+    """Per-unit statistics of one layer over the observations seen so far."""
+
+    name: str
+    neuron: Neuron
+    units: int
+    arrays: tuple[str, ...]
+    rows: int
+    moments: Moments
+    nonfinite: np.ndarray
+    minimum: np.ndarray
+    maximum: np.ndarray
+    abs_sum: np.ndarray | None
+    active: np.ndarray | None = None
+    low: np.ndarray | None = None
+    high: np.ndarray | None = None
+    linear: np.ndarray | None = None
+    gain_sum: np.ndarray | None = None
+    histograms: dict[str, np.ndarray] = field(default_factory=dict)
+
+    @property
+    def kind(self) -> Kind:
+        return self.neuron.kind
+
+    @property
+    def count(self) -> np.ndarray:
+        """Finite observations per unit (int64)."""
+        return self.moments.count.astype(np.int64)
+
+    def merge(self, other: "LayerStats") -> "LayerStats":
+        """Statistics of both sets of observations (same layer, disjoint observations)."""
+        if (other.name, other.neuron, other.units) != (self.name, self.neuron, self.units):
+            raise ValueError(f"cannot merge statistics of '{self.name}' and '{other.name}'")
+
+        def add(a, b):
+            return None if a is None or b is None else a + b
+
+        return replace(
+            self,
+            rows=self.rows + other.rows,
+            moments=self.moments.combine(other.moments),
+            nonfinite=self.nonfinite + other.nonfinite,
+            minimum=np.minimum(self.minimum, other.minimum),
+            maximum=np.maximum(self.maximum, other.maximum),
+            abs_sum=add(self.abs_sum, other.abs_sum),
+            active=add(self.active, other.active), low=add(self.low, other.low),
+            high=add(self.high, other.high), linear=add(self.linear, other.linear),
+            gain_sum=add(self.gain_sum, other.gain_sum),
+            histograms={k: v + other.histograms[k] for k, v in self.histograms.items()},
+        )
+
+    def mean_abs(self) -> np.ndarray:
+        """E|y| per unit (NaN where no finite observation)."""
+        m = self.moments
+        total = m.total if self.abs_sum is None else self.abs_sum
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(m.count > 0, total / m.count, np.nan)
+
+    def gain_total(self) -> np.ndarray | None:
+        """Sum of f'(z) per unit, or None where it cannot be measured.
+
+        Derived from the moments where f' is a function of y (logistic y(1-y), tanh 1-y^2),
+        from the active count for rectified kinds; summed per element otherwise.
+        """
+        kind, m = self.kind, self.moments
+        if self.gain_sum is not None:
+            return self.gain_sum
+        if kind is Kind.LINEAR:
+            return m.count.copy()
+        if kind is Kind.RELU:
+            return self.active.astype(np.float64)
+        if kind is Kind.LEAKY_RELU:
+            on = self.active.astype(np.float64)
+            return on + self.neuron.negative_slope * (m.count - on)
+        if kind is Kind.LOGISTIC:
+            return m.total - m.total_squares
+        if kind is Kind.TANH:
+            return m.count - m.total_squares
+        return None
+
+
+def empty_stats(layer: Layer, settings: Settings) -> LayerStats:
+    """Statistics of no observations, with the fields the layer's kind and arrays need."""
+    info = layer.info
+    neuron = Neuron(info.kind, info.negative_slope, info.threshold)
+    arrays = tuple(a for a in ("preact", "output") if info.has(a))
+    kind, units = info.kind, info.units
+    has_z = "preact" in arrays
+
+    def counter(needed: bool) -> np.ndarray | None:
+        return np.zeros(units, np.int64) if needed else None
+
+    zoned = kind in (Kind.LOGISTIC, Kind.TANH) or (kind is Kind.STOCHASTIC_BINARY and has_z)
+    gain_elementwise = kind in ELEMENTWISE_GAIN and (has_z or kind is Kind.SOFTPLUS)
+    return LayerStats(
+        name=info.name, neuron=neuron, units=units, arrays=arrays, rows=0,
+        moments=Moments.zeros(units),
+        nonfinite=np.zeros(units, np.int64),
+        minimum=np.full(units, np.inf), maximum=np.full(units, -np.inf),
+        abs_sum=None if kind in NONNEGATIVE_OUTPUT else np.zeros(units),
+        active=counter(kind in (Kind.RELU, Kind.LEAKY_RELU, Kind.THRESHOLD,
+                                Kind.STOCHASTIC_BINARY)),
+        low=counter(zoned), high=counter(zoned),
+        linear=counter(kind in (Kind.LOGISTIC, Kind.TANH)),
+        gain_sum=np.zeros(units) if gain_elementwise else None,
+        histograms={k: np.zeros(g.bins, np.int64) for k, g in grids_for(kind).items()
+                    if k in arrays or k == "output" or neuron.invertible},
+    )
+
+
+class _Accumulator:
+    """Adds row slices to a LayerStats, reusing its scratch buffers between slices."""
+
+    def __init__(self, stats: LayerStats, settings: Settings, observations: int):
+        self.stats = stats
+        self.neuron = stats.neuron
+        self.kind = stats.kind
+        units = stats.units
+        self.slice_rows = int(min(MAX_SLICE_ROWS, max(8, SLICE_BYTES // (8 * max(1, units)))))
+        self.x = np.empty((self.slice_rows, units))
+        self.scratch = np.empty((self.slice_rows, units))
+        self.mask = np.empty((self.slice_rows, units), bool)
+        self.zone = self.neuron.saturation_zone(settings.logistic_saturation_margin,
+                                                settings.tanh_saturation_level)
+        self.linear_zone = self.neuron.linear_zone(settings.linear_gain_share)
+        self.grids = grids_for(self.kind)
+        self.stride = sample_stride(observations, settings.histogram_rows)
+
+    # ------------------------------------------------------------------------- blocks
+    def add_block(self, z: np.ndarray | None, y: np.ndarray | None, first_row: int) -> None:
+        rows = (z if y is None else y).shape[0]
+        sums = PowerSums(self.stats.units)
+        step = self.slice_rows
+        for start in range(0, rows, step):
+            stop = min(start + step, rows)
+            z_part = None if z is None else z[start:stop]
+            y_part = self._output(z_part) if y is None else y[start:stop]
+            self._add_slice(z_part, y_part, sums)
+        self.stats.moments = self.stats.moments.combine(sums.moments())
+        self._add_histograms(z, y, first_row)
+        self.stats.rows += rows
+
+    def _output(self, z: np.ndarray) -> np.ndarray:
+        with np.errstate(over="ignore", invalid="ignore"):
+            return self.neuron.output(z)
+
+    def _add_histograms(self, z, y, first_row: int) -> None:
+        hist = self.stats.histograms
+        if z is not None:
+            zs = sampled_rows(z, first_row, self.stride)
+            ys = self._output(zs) if y is None else sampled_rows(y, first_row, self.stride)
+            finite = np.isfinite(zs) & np.isfinite(ys)
+            hist["preact"] += self.grids["preact"].count(zs[finite])
+        else:
+            ys = sampled_rows(y, first_row, self.stride)
+            finite = np.isfinite(ys)
+            if "preact" in hist:
+                hist["preact"] += self.grids["preact"].count(self.neuron.inverse(ys[finite]))
+        hist["output"] += self.grids["output"].count(ys[finite])
+
+    # ------------------------------------------------------------------------- slices
+    def _count(self, out: np.ndarray | None, compare, values, edge, valid) -> None:
+        """Add, per unit, how many rows satisfy ``compare(values, edge)`` (and are valid)."""
+        mask = self.mask[: values.shape[0]]
+        compare(values, edge, out=mask)
+        if valid is not None:
+            np.logical_and(mask, valid, out=mask)
+        out += np.add.reduce(mask.view(np.uint8), axis=0, dtype=np.uint8)
+
+    def _add_slice(self, z: np.ndarray | None, y: np.ndarray, sums: PowerSums) -> None:
+        stats, rows = self.stats, y.shape[0]
+        low = np.minimum.reduce(y, axis=0)
+        high = np.maximum.reduce(y, axis=0)
+        clean = np.isfinite(low).all() and np.isfinite(high).all()
+        if z is not None and clean:
+            clean = bool(np.isfinite(np.add.reduce(z, axis=None)))
+        valid = None
+        x = self.x[:rows]
+        if clean:
+            np.minimum(stats.minimum, low, out=stats.minimum)
+            np.maximum(stats.maximum, high, out=stats.maximum)
+            np.copyto(x, y)
+        else:
+            valid = np.isfinite(y)
+            if z is not None:
+                valid &= np.isfinite(z)
+            stats.nonfinite += rows - np.add.reduce(valid, axis=0, dtype=np.int64)
+            np.minimum(stats.minimum, np.where(valid, y, np.inf).min(axis=0), out=stats.minimum)
+            np.maximum(stats.maximum, np.where(valid, y, -np.inf).max(axis=0),
+                       out=stats.maximum)
+            np.copyto(x, np.where(valid, y, 0.0))
+            if z is not None:
+                z = np.where(valid, z, 0.0)
+        self._add_counts(z, y, valid)
+        if stats.gain_sum is not None:
+            self._add_gain(z, y, valid)
+        if stats.abs_sum is not None:
+            np.abs(x, out=self.scratch[:rows])
+            stats.abs_sum += np.add.reduce(self.scratch[:rows], axis=0)
+        sums.add(x, self.scratch[:rows], valid)
+
+    def _add_counts(self, z, y, valid) -> None:
+        stats, kind = self.stats, self.kind
+        if stats.active is not None:
+            if kind is Kind.RELU:
+                self._count(stats.active, np.greater, y, 0.0, valid)
+            elif kind is Kind.LEAKY_RELU:
+                self._count(stats.active, np.greater, y if z is None else z, 0.0, valid)
+            elif "output" in stats.arrays:  # threshold, stochastic binary with stored output
+                self._count(stats.active, np.greater, y, 0.5, valid)
+            elif kind is Kind.THRESHOLD:
+                self._count(stats.active, np.greater, z, self.neuron.threshold, valid)
+        if stats.low is not None:
+            zone = self.zone
+            if z is not None:
+                self._count(stats.low, np.less, z, zone.z_low, valid)
+                self._count(stats.high, np.greater, z, zone.z_high, valid)
+            else:
+                self._count(stats.low, np.less, y, zone.y_low, valid)
+                self._count(stats.high, np.greater, y, zone.y_high, valid)
+        if stats.linear is not None:
+            lin = self.linear_zone
+            source, centre, half = ((z, 0.0, lin.z_high) if z is not None
+                                    else (y, 0.5 * (lin.y_low + lin.y_high),
+                                          0.5 * (lin.y_high - lin.y_low)))
+            dist = self.scratch[: source.shape[0]]
+            np.subtract(source, centre, out=dist)
+            np.abs(dist, out=dist)
+            self._count(stats.linear, np.less_equal, dist, half, valid)
+
+    def _add_gain(self, z, y, valid) -> None:
+        if z is not None:
+            gain = self.neuron.gain(z)
+        else:  # softplus from its output: f'(z) = logistic(z) = 1 - exp(-y)
+            gain = -np.expm1(-(y if valid is None else np.where(valid, y, 0.0)))
+        if valid is not None:
+            gain = np.where(valid, gain, 0.0)
+        self.stats.gain_sum += np.add.reduce(gain, axis=0, dtype=np.float64)
+
+
+def accumulate_layer(
+    layer: Layer,
+    settings: Settings | None = None,
+    start_sample: int = 0,
+    stop_sample: int | None = None,
+    progress: Callable[[int], None] | None = None,
+) -> LayerStats:
+    """Statistics of samples ``start_sample:stop_sample`` of ``layer``, in one pass.
+
+    ``progress(rows)`` is called after each block with the observation rows it held. Shards of
+    one layer merge (``LayerStats.merge``) into the statistics of the whole range.
+    """
+    settings = settings or Settings()
+    stats = empty_stats(layer, settings)
+    if not stats.arrays:
+        return stats
+    positions = layer.info.positions
+    acc = _Accumulator(stats, settings, layer.info.observations)
+    first_row = start_sample * positions
+    for z, y in layer.paired_blocks(settings.block_observations, start_sample=start_sample,
+                                    stop_sample=stop_sample):
+        block = (y if y is not None else z).shape[0]
+        acc.add_block(z, y, first_row)
+        first_row += block
+        if progress is not None:
+            progress(block)
+    if stats.kind is Kind.STOCHASTIC_BINARY and "output" not in stats.arrays:
+        stats.active = stats.count - stats.low
+    return stats
