@@ -1,0 +1,80 @@
+"""Thresholds: defaults, TOML and overrides, one-sentence errors; the check registry."""
+
+import math
+from pathlib import Path
+
+import pytest
+
+from actdoc.analysis import TABLE, Settings, load_settings
+from actdoc.analysis.checks import REGISTRY, all_checks
+from actdoc.errors import InvalidSetting
+
+DOCS = Path(__file__).resolve().parents[2] / "docs" / "checks.md"
+
+
+def test_defaults_are_the_interface_values():
+    # interfaces.md section 4: ln 99 / atanh 0.99 edges, 1% dormant, 95% saturated
+    s = Settings()
+    assert s.logistic_saturation_margin == 0.01 and s.tanh_saturation_level == 0.99
+    assert s.dormant_active_share == 0.01 and s.saturated_share == 0.95
+    assert s.near_binary_share == 0.95 and s.near_binary_minority == 0.05
+    assert s.as_mapping()["signal_limit"] == 10.0
+    assert all(row.meaning and row.reason and row.source for row in TABLE)
+
+
+def test_toml_then_overrides(tmp_path):
+    config = tmp_path / "thresholds.toml"
+    config.write_text("saturated_share = 0.9\nsignal_limit = 20\nhistogram_rows = 100\n")
+    s = load_settings(config, ["signal_limit=5", "dormant_active_share = 0.02"])
+    assert (s.saturated_share, s.signal_limit, s.dormant_active_share) == (0.9, 5.0, 0.02)
+    assert s.histogram_rows == 100 and isinstance(s.histogram_rows, int)
+    with pytest.raises(Exception):
+        s.signal_limit = 3  # frozen
+
+
+@pytest.mark.parametrize("overrides, fragment", [
+    (["no_such=1"], "unknown setting 'no_such' (from --set); known settings are"),
+    (["saturated_share=abc"], "setting 'saturated_share' = 'abc' (from --set): expected a "
+                              "number in (0, 1]"),
+    (["saturated_share=1.5"], "expected a number in (0, 1]"),
+    (["histogram_rows=2.5"], "expected a whole number"),
+    (["signal_limit"], "override 'signal_limit' (from --set): expected name=value"),
+    (["warning_share=0.6"], "'warning_share' = 0.6 (from --set) is above 'critical_share'"),
+])
+def test_bad_overrides_raise_one_sentence(overrides, fragment):
+    with pytest.raises(InvalidSetting) as caught:
+        load_settings(None, overrides)
+    assert fragment in str(caught.value) and "\n" not in str(caught.value)
+
+
+def test_bad_toml_files(tmp_path):
+    broken = tmp_path / "broken.toml"
+    broken.write_text("saturated_share = = 1")
+    with pytest.raises(InvalidSetting, match=r"^broken.toml: not valid TOML"):
+        load_settings(broken)
+    unknown = tmp_path / "unknown.toml"
+    unknown.write_text("[section]\nx = 1\n")
+    with pytest.raises(InvalidSetting, match=r"unknown setting 'section' \(in unknown.toml\)"):
+        load_settings(unknown)
+    with pytest.raises(InvalidSetting, match="missing.toml: cannot read"):
+        load_settings(tmp_path / "missing.toml")
+
+
+def test_registry_finds_every_check_in_exclusivity_order():
+    names = [c.name for c in all_checks()]
+    assert set(names) == {"non_finite", "dead", "dormant", "saturated", "near_binary",
+                          "linear_regime", "constant", "vanishing_signal", "exploding_signal",
+                          "init_scale"}
+    ranked = [c.name for c in all_checks() if c.rank is not None]
+    assert ranked == ["dead", "dormant", "saturated", "near_binary", "linear_regime",
+                      "constant"]
+    assert all(REGISTRY[n].cause and REGISTRY[n].remedy for n in names)
+
+
+def test_docs_describe_every_setting_and_check():
+    text = DOCS.read_text()
+    for row in TABLE:
+        assert f"`{row.name}`" in text, row.name
+    for name in REGISTRY:
+        assert f"`{name}`" in text, name
+    assert math.log(99) == pytest.approx(4.595, abs=1e-3) and "4.595" in text
