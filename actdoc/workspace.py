@@ -30,7 +30,7 @@ from pathlib import Path
 from typing import BinaryIO
 
 from actdoc.errors import ActdocError
-from actdoc.model import Findings
+from actdoc.model import Findings, SourceInfo
 
 log = logging.getLogger(__name__)
 
@@ -336,7 +336,10 @@ class Workspace:
         scratch = Path(tempfile.mkdtemp(prefix="findings-", dir=self.root / "tmp"))
         try:
             with _open_dump(self.dump_path(record)) as dump:
-                findings = analyze(dump, progress=progress)
+                # The bytes were hashed on upload: hand the engine the source, not a re-read.
+                source = SourceInfo(file=record.name, sha256=record.sha256, format=dump.format,
+                                    samples=dump.samples)
+                findings = analyze(dump, progress=progress, source=source)
             save_findings(findings, scratch)
             target = self.findings_dir(record)
             if target.exists():

@@ -57,6 +57,8 @@ def number(value: Any, digits: int = 3) -> str:
         return "–"
     if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
         return f"{int(value):,}"
+    if not isinstance(value, (float, np.floating)):
+        return str(value)
     value = float(value)
     if not math.isfinite(value):
         return "–" if math.isnan(value) else ("∞" if value > 0 else "−∞")

@@ -41,10 +41,11 @@ def base_layout(title: str, **extra: Any) -> dict[str, Any]:
         "font": {"family": "system-ui, -apple-system, Segoe UI, sans-serif", "size": 12,
                  "color": INK},
         "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#ffffff",
-        "margin": {"l": 56, "r": 24, "t": 48, "b": 48},
+        "margin": {"l": 60, "r": 24, "t": 48, "b": 56},
         "xaxis": {"gridcolor": GRID, "zerolinecolor": GRID},
         "yaxis": {"gridcolor": GRID, "zerolinecolor": GRID},
-        "legend": {"orientation": "h", "y": -0.2},
+        "legend": {"orientation": "h", "x": 1, "xanchor": "right", "y": 1.0,
+                   "yanchor": "bottom", "bgcolor": "rgba(0,0,0,0)"},
         "hovermode": "closest",
     }
     for key, value in extra.items():
@@ -63,12 +64,11 @@ def depth_fractions(findings: Findings, checks: Sequence[str]) -> dict[str, Any]
         shares = [report.fractions.get(check) for report in findings.layers]
         if not any(share for share in shares if share is not None):
             continue
-        traces.append({"type": "scatter", "mode": "lines+markers", "name": check,
-                       "x": names, "y": shares,
-                       "line": {"color": CHECK_COLOURS.get(check, MUTED), "width": 2},
+        traces.append({"type": "bar", "name": check, "x": names, "y": shares,
+                       "marker": {"color": CHECK_COLOURS.get(check, MUTED)},
                        "hovertemplate": "%{x}: %{y:.1%} " + check + "<extra></extra>"})
     return {"data": traces, "layout": base_layout(
-        "Share of units in each check, by depth",
+        "Share of units in each check, by depth", barmode="group",
         yaxis={"tickformat": ".0%", "rangemode": "tozero", "title": {"text": "share of units"}},
         xaxis={"type": "category"})}
 
@@ -90,31 +90,33 @@ def depth_signal(findings: Findings) -> dict[str, Any]:
         yaxis={"type": "log", "title": {"text": "size (log)"}}, xaxis={"type": "category"})}
 
 
-def zone_shapes(info: LayerInfo, settings: Mapping[str, float]) -> tuple[list, list]:
-    """Shaded bands for the saturated and near-linear zones of the layer's kind, with labels."""
+def zone_shapes(info: LayerInfo,
+                settings: Mapping[str, float]) -> tuple[list, list, float | None]:
+    """Shaded bands for the saturated and near-linear zones of the layer's kind, their labels,
+    and the saturation edge |z| (None for kinds that do not saturate)."""
     values = {name: float(settings.get(name, ROWS[name].default)) for name in ZONE_SETTINGS}
     neuron = Neuron(info.kind, info.negative_slope, info.threshold)
     shapes, notes = [], []
+    band = {"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 1,
+            "line": {"width": 0}, "layer": "below"}
+    label = {"yref": "paper", "xref": "x", "showarrow": False, "font": {"size": 11}}
     saturation = neuron.saturation_zone(values["logistic_saturation_margin"],
                                         values["tanh_saturation_level"])
+    reach = None
     if saturation is not None:
-        for x0, x1 in ((None, saturation.z_low), (saturation.z_high, None)):
-            shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 1,
-                           "x0": x0 if x0 is not None else -1e6,
-                           "x1": x1 if x1 is not None else 1e6,
-                           "fillcolor": SATURATED_FILL, "line": {"width": 0}, "layer": "below"})
-        notes.append({"x": saturation.z_high, "y": 1, "xref": "x", "yref": "paper",
-                      "text": "saturated beyond", "showarrow": False, "xanchor": "left",
-                      "yanchor": "bottom", "font": {"size": 11, "color": "#8a5a12"}})
+        reach = max(abs(saturation.z_low), abs(saturation.z_high))
+        shapes.append({**band, "x0": -1e6, "x1": saturation.z_low, "fillcolor": SATURATED_FILL})
+        shapes.append({**band, "x0": saturation.z_high, "x1": 1e6, "fillcolor": SATURATED_FILL})
+        notes.append({**label, "x": saturation.z_high, "y": 0.97, "xanchor": "left",
+                      "yanchor": "top", "text": " saturated",
+                      "font": {"size": 11, "color": "#8a5a12"}})
     linear = neuron.linear_zone(values["linear_gain_share"])
     if linear is not None:
-        shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 1,
-                       "x0": linear.z_low, "x1": linear.z_high, "fillcolor": LINEAR_FILL,
-                       "line": {"width": 0}, "layer": "below"})
-        notes.append({"x": 0, "y": 1, "xref": "x", "yref": "paper", "text": "near-linear",
-                      "showarrow": False, "yanchor": "bottom",
+        shapes.append({**band, "x0": linear.z_low, "x1": linear.z_high,
+                       "fillcolor": LINEAR_FILL})
+        notes.append({**label, "x": 0, "y": 0.97, "yanchor": "top", "text": "near-linear",
                       "font": {"size": 11, "color": "#2c4f9c"}})
-    return shapes, notes
+    return shapes, notes, reach
 
 
 def curve_trace(info: LayerInfo, low: float, high: float) -> dict[str, Any] | None:
@@ -128,12 +130,42 @@ def curve_trace(info: LayerInfo, low: float, high: float) -> dict[str, Any] | No
             "hovertemplate": "z %{x:.3g} → f %{y:.3g}<extra></extra>"}
 
 
+def occupied_range(edges: np.ndarray, counts: np.ndarray) -> tuple[float, float]:
+    """From the first to the last bin holding anything (fixed grids reach far past the data)."""
+    filled = np.flatnonzero(np.asarray(counts) > 0)
+    if filled.size == 0:
+        return float(edges[0]), float(edges[-1])
+    low, high = float(edges[filled[0]]), float(edges[filled[-1] + 1])
+    if filled[-1] - filled[0] < 2:  # one value or nearly: give the bar some room
+        pad = 4 * (high - low) or 1.0
+        low, high = low - pad, high + pad
+    return low, high
+
+
 def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
-                   colour: str = "#7fb2a8") -> dict[str, Any]:
+                   colour: str = "#7fb2a8") -> tuple[dict[str, Any], str]:
+    """Bars over the bins and the y label. Bins of unequal width (the engine's asinh grid) are
+    drawn as observations per unit of x, so a wide outer bin does not look like a wall."""
     edges = np.asarray(edges, dtype=float)
-    return {"type": "bar", "name": name, "x": (edges[:-1] + edges[1:]) / 2,
-            "y": np.asarray(counts), "width": np.diff(edges), "marker": {"color": colour},
-            "hovertemplate": "%{x:.3g}: %{y} observations<extra></extra>"}
+    counts = np.asarray(counts)
+    widths = np.diff(edges)
+    uneven = widths.size > 1 and widths.max() > 1.01 * widths.min()
+    heights = counts / widths if uneven else counts
+    trace = {"type": "bar", "name": name, "x": (edges[:-1] + edges[1:]) / 2, "y": heights,
+             "width": widths, "customdata": counts, "marker": {"color": colour},
+             "hovertemplate": "%{x:.3g}: %{customdata} observations<extra></extra>"}
+    return trace, ("observations per unit" if uneven else "observations")
+
+
+def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str,
+                     x_label: str, y_label: str | None = None) -> dict[str, Any]:
+    """A plain histogram (outputs, biases, weights) over the range that holds data."""
+    trace, bars_label = histogram_bars(edges, counts, x_label)
+    y_label = y_label or bars_label
+    return {"data": [trace], "layout": base_layout(
+        title, bargap=0, showlegend=False,
+        xaxis={"title": {"text": x_label}, "range": list(occupied_range(edges, counts))},
+        yaxis={"title": {"text": y_label}})}
 
 
 def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
@@ -141,33 +173,37 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
                        band: Sequence[float] | None = None) -> dict[str, Any]:
     """Histogram of total inputs with f(z) drawn over it and the zones shaded.
 
-    ``band`` (low, high) marks a range of z, e.g. the middle 90% of one unit's inputs.
+    The view spans the inputs and, for saturating kinds, both saturation edges, so a reader
+    sees where the inputs sit against them. ``band`` (low, high) marks a range of z, e.g. the
+    middle 90% of one unit's inputs.
     """
     edges = np.asarray(edges, dtype=float)
-    traces = [histogram_bars(edges, counts, "total inputs")]
-    finite = edges[np.isfinite(edges)]
-    low, high = (float(finite.min()), float(finite.max())) if finite.size else (-1.0, 1.0)
-    if high - low < 1e-9:
-        low, high = low - 1.0, high + 1.0
+    bars, y_label = histogram_bars(edges, counts, "total inputs")
+    traces = [bars]
+    low, high = occupied_range(edges, counts)
+    shapes, notes, reach = zone_shapes(info, settings)
+    if reach is not None:
+        low, high = min(low, -1.25 * reach), max(high, 1.25 * reach)
     curve = curve_trace(info, low, high)
+    curve_axis = {"overlaying": "y", "side": "right", "showgrid": False,
+                  "title": {"text": "output f(z)"}, "nticks": 6}
     if curve is not None:
         traces.append(curve)
-    shapes, notes = zone_shapes(info, settings)
+        y_low, y_high = float(np.min(curve["y"])), float(np.max(curve["y"]))
+        pad = 0.05 * ((y_high - y_low) or 1.0)
+        curve_axis["range"] = [y_low - pad, y_high + pad]
     if band is not None and np.isfinite(band).all():
         shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 0.04,
                        "x0": band[0], "x1": band[1], "fillcolor": ACCENT, "line": {"width": 0}})
     return {"data": traces, "layout": base_layout(
-        title, shapes=shapes, annotations=notes, bargap=0,
+        title, shapes=shapes, annotations=notes, bargap=0, margin={"r": 60},
         xaxis={"title": {"text": "total input z"}, "range": [low, high]},
-        yaxis={"title": {"text": "observations"}},
-        yaxis2={"overlaying": "y", "side": "right", "showgrid": False,
-                "title": {"text": "output f(z)"}})}
+        yaxis={"title": {"text": y_label}},
+        yaxis2=curve_axis)}
 
 
 #: Unit map axes per kind: (x column, x label, y column, y label).
 UNIT_MAP_AXES = {
-    "squashing": ("low_fraction", "share of inputs saturated low",
-                  "high_fraction", "share of inputs saturated high"),
     "rectified": ("active_fraction", "share of inputs where the unit is active",
                   "std", "spread of the output (std)"),
     "other": ("mean", "mean output", "std", "spread of the output (std)"),
@@ -175,8 +211,6 @@ UNIT_MAP_AXES = {
 
 
 def unit_map_axes(kind: ActivationKind) -> tuple[str, str, str, str]:
-    if kind in (ActivationKind.LOGISTIC, ActivationKind.TANH):
-        return UNIT_MAP_AXES["squashing"]
     if kind in (ActivationKind.RELU, ActivationKind.LEAKY_RELU, ActivationKind.THRESHOLD,
                 ActivationKind.STOCHASTIC_BINARY):
         return UNIT_MAP_AXES["rectified"]
@@ -229,6 +263,4 @@ def value_histogram(values: np.ndarray, title: str, x_label: str,
     if values.size == 0:
         return None
     counts, edges = np.histogram(values, bins=bins)
-    return {"data": [histogram_bars(edges, counts, x_label)], "layout": base_layout(
-        title, bargap=0, xaxis={"title": {"text": x_label}}, yaxis={"title": {"text": "count"}},
-        showlegend=False)}
+    return histogram_figure(edges, counts, title, x_label, y_label="count")

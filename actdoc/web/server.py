@@ -9,7 +9,7 @@ from typing import TextIO
 
 from actdoc.web.app import LOOPBACK_HOSTS, create_app
 
-DEFAULT_PORT = 8750
+DEFAULT_PORT = 8150
 
 
 def is_loopback(host: str) -> bool:

@@ -66,6 +66,11 @@ def overview(findings: Findings) -> dict[str, Any]:
     }
 
 
+def _all_missing(values: np.ndarray) -> bool:
+    """A numeric column with no finite value (the measure does not apply to this kind)."""
+    return values.dtype.kind == "f" and not np.isfinite(values).any()
+
+
 def _sort_key(values: np.ndarray) -> np.ndarray:
     """Values ordered with missing (NaN) ones last, whatever the direction."""
     if values.dtype.kind in "fc":
@@ -81,7 +86,10 @@ def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = Fal
     units = report.info.units
     table["unit"] = np.arange(units)
     states = np.asarray(table.get("state", np.full(units, "")), dtype=str)
-    columns = ["unit", "state"] + [c for c in report.unit_table if c != "state"]
+    # "observations" is the same for every unit (the page header shows it).
+    columns = ["unit", "state"] + [c for c in report.unit_table
+                                   if c not in ("state", "observations")
+                                   and not _all_missing(table[c])]
     columns = [c for c in columns if c in table]
     picked = np.arange(units) if not state else np.flatnonzero(
         states == ("" if state == "none" else state))
@@ -138,12 +146,8 @@ def layer_detail(findings: Findings, report: LayerReport, **table_options: Any) 
     output_hist = report.histograms.get("output")
     outputs = None
     if output_hist is not None and np.asarray(output_hist.counts).size:
-        outputs = {"data": [figures.histogram_bars(output_hist.edges, output_hist.counts,
-                                                   "outputs")],
-                   "layout": figures.base_layout(f"Outputs of {info.name}", bargap=0,
-                                                 showlegend=False,
-                                                 xaxis={"title": {"text": "output y"}},
-                                                 yaxis={"title": {"text": "observations"}})}
+        outputs = figures.histogram_figure(output_hist.edges, output_hist.counts,
+                                           f"Outputs of {info.name}", "output y")
     return {
         "layer": {**layer_summary(report), "kind_note": info.kind_note},
         "findings": findings_for_page(findings, sorted(
@@ -172,6 +176,9 @@ def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) 
     layer = dump.layer(info.name)
     row = {column: plain(np.asarray(values)[unit])
            for column, values in report.unit_table.items()}
+    state = row.get("state") or ""
+    # Measures that do not apply to this kind are NaN (None here): leave them out.
+    row = {column: value for column, value in row.items() if value not in (None, "")}
     charts: dict[str, Any] = {}
     nonfinite = {}
     if info.has("preact"):
@@ -181,15 +188,12 @@ def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) 
         band = np.percentile(finite, [5, 95]) if finite.size else None
         charts["preact"] = figures.inputs_under_curve(
             info, edges, counts, findings.settings,
-            f"Unit {unit}: total inputs under f(z) (bar below: middle 90%)", band=band)
+            f"Unit {unit}: total inputs under f(z)", band=band)
     if info.has("output"):
         y = layer.unit_values("output", unit)
         edges, counts, nonfinite["output"] = _values_histogram(y)
-        charts["output"] = {"data": [figures.histogram_bars(edges, counts, "outputs")],
-                            "layout": figures.base_layout(
-                                f"Unit {unit}: outputs", bargap=0, showlegend=False,
-                                xaxis={"title": {"text": "output y"}},
-                                yaxis={"title": {"text": "observations"}})}
+        charts["output"] = figures.histogram_figure(edges, counts, f"Unit {unit}: outputs",
+                                                    "output y")
     weights = None
     incoming = layer.weight()
     if incoming is not None:
@@ -208,5 +212,5 @@ def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) 
             entry["unit_measure"] = plain(finding.unit_measures[finding.units.index(unit)])
         entry.pop("units", None)
     return {"layer": layer_summary(report), "unit": unit, "row": row,
-            "state": row.get("state") or "", "nonfinite": nonfinite, "weights": weights,
+            "state": state, "nonfinite": nonfinite, "weights": weights,
             "findings": entries, "figures": charts, "caveat": findings.caveat or CAVEAT}
