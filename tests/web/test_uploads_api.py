@@ -177,3 +177,16 @@ def test_stream_ingest_outside_flask(tmp_path, planted_dump):
     assert store.dump_path(record).parent.parent == store.root / "dumps"
     assert json.loads(json.dumps(record.to_dict()))["status"] == "queued"
     assert math.isclose(record.progress, 0.0)
+
+
+def test_demo_mode_stores_each_bundled_dump_once(workspace_dir):
+    from demo_models import bundled_dumps
+
+    demos = bundled_dumps()
+    client = create_app(workspace_dir, demo=True).test_client()
+    listed = client.get("/api/dumps").get_json()
+    assert sorted(d["name"] for d in listed) == sorted(p.name for p in demos)
+    for dump in listed:
+        assert wait_until_done(client, dump["id"])["status"] == "ready"
+    again = create_app(workspace_dir, demo=True).test_client()
+    assert len(again.get("/api/dumps").get_json()) == len(demos)
