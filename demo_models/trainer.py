@@ -21,6 +21,10 @@ KINDS = ("relu", "leaky_relu", "logistic", "tanh", "linear")
 LOSSES = ("softmax_cross_entropy", "mse")
 
 
+def unknown_kind(kind: str) -> ValueError:
+    return ValueError(f"unknown layer kind '{kind}'; the trainer knows {', '.join(KINDS)}")
+
+
 def activate(kind: str, z: np.ndarray, negative_slope: float = 0.01) -> np.ndarray:
     """The transfer function ``f(z)`` of a kind."""
     if kind == "relu":
@@ -35,7 +39,7 @@ def activate(kind: str, z: np.ndarray, negative_slope: float = 0.01) -> np.ndarr
         return np.tanh(z)
     if kind == "linear":
         return z.copy()
-    raise ValueError(f"unknown layer kind '{kind}'; the trainer knows {', '.join(KINDS)}")
+    raise unknown_kind(kind)
 
 
 def derivative(kind: str, z: np.ndarray, y: np.ndarray, negative_slope: float = 0.01) -> np.ndarray:
@@ -50,7 +54,7 @@ def derivative(kind: str, z: np.ndarray, y: np.ndarray, negative_slope: float = 
         return 1.0 - y * y
     if kind == "linear":
         return np.ones_like(z)
-    raise ValueError(f"unknown layer kind '{kind}'; the trainer knows {', '.join(KINDS)}")
+    raise unknown_kind(kind)
 
 
 # --- initialisers: each returns a [units, fan_in] weight matrix --------------------------------
@@ -129,7 +133,7 @@ class MLP:
         self.layers: list[Dense] = []
         for i, kind in enumerate(kinds):
             if kind not in KINDS:
-                raise ValueError(f"unknown layer kind '{kind}'; the trainer knows {', '.join(KINDS)}")
+                raise unknown_kind(kind)
             weight = INITIALISERS[inits[i]](rng, sizes[i + 1], sizes[i])
             self.layers.append(Dense(
                 name=names[i], kind=kind, weight=weight,
@@ -137,22 +141,14 @@ class MLP:
             ))
 
     def parameters(self) -> list[np.ndarray]:
-        """Every trainable array, in the order ``gradients`` returns their gradients."""
+        """Every trainable array, in the order ``loss_and_gradients`` returns their gradients."""
         return [p for layer in self.layers for p in (layer.weight, layer.bias)]
 
-    def forward(
-        self, x: np.ndarray, noise: float = 0.0, rng: np.random.Generator | None = None
-    ) -> list[Recording]:
-        """Every layer's ``(preact, output)`` on ``x``, in forward order.
-
-        ``noise`` adds N(0, noise**2) to every hidden layer's total input (never the output
-        layer's), a training-time regulariser that rewards large, decisive pre-activations.
-        """
+    def forward(self, x: np.ndarray) -> list[Recording]:
+        """Every layer's ``(preact, output)`` on ``x``, in forward order."""
         trace = []
-        for position, layer in enumerate(self.layers):
+        for layer in self.layers:
             z = x @ layer.weight.T + layer.bias
-            if noise and position < len(self.layers) - 1:
-                z = z + rng.normal(0.0, noise, size=z.shape)
             x = activate(layer.kind, z, layer.negative_slope)
             trace.append(Recording(z, x))
         return trace
@@ -181,17 +177,15 @@ class MLP:
         return out
 
     def loss_and_gradients(
-        self, x: np.ndarray, targets: np.ndarray, loss: str,
-        noise: float = 0.0, rng: np.random.Generator | None = None,
+        self, x: np.ndarray, targets: np.ndarray, loss: str
     ) -> tuple[float, list[np.ndarray]]:
         """Mean loss over the batch and its gradient for every array of ``parameters()``.
 
         ``softmax_cross_entropy`` takes integer class labels and applies the softmax to the last
         layer's output; ``mse`` takes a ``[samples, outputs]`` target and averages
-        ``0.5 * sum((y - t)**2)`` over samples. ``noise`` is as in ``forward``; the gradient is
-        that of the loss for the noise drawn.
+        ``0.5 * sum((y - t)**2)`` over samples.
         """
-        trace = self.forward(x, noise, rng)
+        trace = self.forward(x)
         value, delta_y = output_loss(trace[-1].output, targets, loss)
         grads: list[np.ndarray] = []
         inputs = [x] + [rec.output for rec in trace[:-1]]
@@ -277,14 +271,12 @@ def train(
     batch_size: int,
     loss: str = "softmax_cross_entropy",
     schedule: Callable[[int], float] | None = None,
-    noise: float = 0.0,
     after_epoch: Callable[[int, MLP], None] | None = None,
 ) -> list[float]:
     """Train for ``epochs`` passes over shuffled mini-batches; returns each epoch's mean loss.
 
     ``schedule(epoch)`` sets the optimizer's rate at the start of each epoch; ``after_epoch``
     sees the model after each epoch (used to record checkpoints and activation traces).
-    ``noise`` is the hidden pre-activation noise of ``MLP.forward`` (0 for none).
     """
     history = []
     params = model.parameters()
@@ -295,7 +287,7 @@ def train(
         total = 0.0
         for start in range(0, len(x), batch_size):
             batch = order[start:start + batch_size]
-            value, grads = model.loss_and_gradients(x[batch], targets[batch], loss, noise, rng)
+            value, grads = model.loss_and_gradients(x[batch], targets[batch], loss)
             optimizer.step(params, grads)
             total += value * len(batch)
         history.append(total / len(x))
