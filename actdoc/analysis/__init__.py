@@ -7,7 +7,7 @@
 
 from actdoc.analysis.defaults import TABLE, Settings, load_settings
 from actdoc.analysis.stats import LayerStats, accumulate_layer
-from actdoc.analysis.engine import analyze, source_info
+from actdoc.analysis.engine import analyze, findings_from_stats, source_info
 
 __all__ = ["TABLE", "Settings", "load_settings", "LayerStats", "accumulate_layer", "analyze",
-           "source_info"]
+           "findings_from_stats", "source_info"]

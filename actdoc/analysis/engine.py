@@ -8,6 +8,7 @@ unit is named by at most one of dead, dormant, saturated, near_binary, linear_re
 from __future__ import annotations
 
 import hashlib
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Callable
 
@@ -158,10 +159,30 @@ def analyze(dump: Dump, settings: Settings | None = None,
     settings = settings or Settings()
     if progress is not None:
         progress(0.0)
+    hashing = None
+    if source is None:  # hashlib releases the GIL: hash the file while the layers are measured
+        hashing = ThreadPoolExecutor(max_workers=1, thread_name_prefix="actdoc-sha256")
+        pending_source = hashing.submit(source_info, dump)
+    try:
+        measured = _measure_all(dump, settings, progress)
+        if hashing is not None:
+            source = pending_source.result()
+    finally:
+        if hashing is not None:
+            hashing.shutdown(wait=False, cancel_futures=True)
+    findings = findings_from_stats(dump, measured, settings, source)
+    if progress is not None:
+        progress(1.0)
+    return findings
+
+
+def findings_from_stats(dump: Dump, measured: list[LayerStats | None], settings: Settings,
+                        source: SourceInfo | None = None) -> Findings:
+    """Findings from per-layer statistics already measured (one entry per layer of ``dump``,
+    None for a layer without activations), e.g. merged from shards or workers."""
     checks = all_checks()
     unit_checks = [c for c in checks if c.scope == "unit"]
     layer_checks = [c for c in checks if c.scope == "layer"]
-    measured = _measure_all(dump, settings, progress)
     scales = [output_scale(stats) for stats in measured]
     reference = next(((layer.name, scale) for layer, scale in zip(dump.layers, scales)
                       if scale is not None and np.isfinite(scale) and scale > 0), (None, None))
@@ -184,8 +205,6 @@ def analyze(dump: Dump, settings: Settings | None = None,
             gradient_gain=gradient_gain(stats),
             unit_table=unit_table(stats, info.units, states, sides),
             histograms=histograms(stats), weights=weights))
-    if progress is not None:
-        progress(1.0)
     return Findings(source=source or source_info(dump), layers=tuple(reports),
                     findings=tuple(all_findings), settings=settings.as_mapping())
 

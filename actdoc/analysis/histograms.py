@@ -53,7 +53,7 @@ class Grid:
             flat = np.arcsinh(flat / self.scale)
         position = (flat - self.low) * (self.bins / (self.high - self.low))
         position = position[~np.isnan(position)]
-        np.clip(position, 0, self.bins - 1, out=position)
+        np.minimum(np.maximum(position, 0, out=position), self.bins - 1, out=position)
         return np.bincount(position.astype(np.intp), minlength=self.bins).astype(np.int64)
 
 

@@ -20,8 +20,10 @@ What is measured on which array:
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field, replace
-from typing import Callable
+from queue import Empty, Full, Queue
+from typing import Callable, Iterator
 
 import numpy as np
 
@@ -281,6 +283,51 @@ class _Accumulator:
         self.stats.gain_sum += np.add.reduce(gain, axis=0, dtype=np.float64)
 
 
+def _read_ahead(blocks: Iterator[tuple], depth: int) -> Iterator[tuple]:
+    """Yield copies of ``blocks`` while a thread reads the next ones.
+
+    Reading (file I/O, decompression) and the statistics (numpy, which releases the GIL) then
+    overlap on two cores. Copies are needed because ``paired_blocks`` reuses its buffers.
+    """
+    queue: Queue = Queue(maxsize=depth)
+    stop = threading.Event()
+    done = object()
+
+    def produce() -> None:
+        try:
+            for pair in blocks:
+                copied = tuple(None if a is None else a.copy() for a in pair)
+                while not stop.is_set():
+                    try:
+                        queue.put(copied, timeout=0.1)
+                        break
+                    except Full:
+                        continue
+                if stop.is_set():
+                    return
+            queue.put(done)
+        except BaseException as exc:  # handed to the consumer, raised there
+            queue.put(exc)
+
+    worker = threading.Thread(target=produce, name="actdoc-read-ahead", daemon=True)
+    worker.start()
+    try:
+        while True:
+            item = queue.get()
+            if item is done:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        while worker.is_alive():
+            try:
+                queue.get_nowait()
+            except Empty:
+                worker.join(0.05)
+
+
 def accumulate_layer(
     layer: Layer,
     settings: Settings | None = None,
@@ -300,8 +347,11 @@ def accumulate_layer(
     positions = layer.info.positions
     acc = _Accumulator(stats, settings, layer.info.observations)
     first_row = start_sample * positions
-    for z, y in layer.paired_blocks(settings.block_observations, start_sample=start_sample,
-                                    stop_sample=stop_sample):
+    blocks = layer.paired_blocks(settings.block_observations, start_sample=start_sample,
+                                 stop_sample=stop_sample)
+    if settings.read_ahead_blocks > 0:
+        blocks = _read_ahead(blocks, settings.read_ahead_blocks)
+    for z, y in blocks:
         block = (y if y is not None else z).shape[0]
         acc.add_block(z, y, first_row)
         first_row += block

@@ -102,15 +102,18 @@ def unit_table(stats: LayerStats | None, units: int, states: np.ndarray,
             with np.errstate(invalid="ignore", divide="ignore"):
                 return np.where(n > 0, counts / np.where(n > 0, n, 1.0), np.nan)
 
+        # a unit whose finite values are all equal has no spread, whatever rounding the
+        # moment merges left behind
+        flat = stats.maximum == stats.minimum
         table["mean"] = np.where(n > 0, m.mean, np.nan)
-        table["std"] = m.std()
+        table["std"] = np.where(flat & (n > 0), 0.0, m.std())
         table["min"] = np.where(n > 0, stats.minimum, np.nan)
         table["max"] = np.where(n > 0, stats.maximum, np.nan)
         table["active_fraction"] = share(stats.active)
         table["low_fraction"] = share(stats.low)
         table["high_fraction"] = share(stats.high)
         table["linear_fraction"] = share(stats.linear)
-        table["bimodality"] = m.bimodality()
+        table["bimodality"] = np.where(flat, np.nan, m.bimodality())
         table["dormant_score"] = dormant_scores(stats)
         gain = stats.gain_total()
         peak = stats.neuron.max_gain
