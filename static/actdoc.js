@@ -102,8 +102,27 @@
     });
   }
 
+  /* The Shelf's compare button: enabled once two dumps are ticked. */
+  function wireDriftPicker() {
+    var form = document.getElementById("drift-form");
+    if (!form) return;
+    var button = form.querySelector("button[type=submit]");
+    var boxes = document.querySelectorAll('input[type=checkbox][form="drift-form"]');
+    function update() {
+      var ticked = Array.prototype.filter.call(boxes, function (box) { return box.checked; });
+      button.disabled = ticked.length < 2;
+      button.textContent = ticked.length >= 2
+        ? "Compare the " + ticked.length + " ticked dumps" : "Compare the ticked dumps";
+    }
+    Array.prototype.forEach.call(boxes, function (box) {
+      box.addEventListener("change", update);
+    });
+    update();
+  }
+
   document.addEventListener("DOMContentLoaded", function () {
     wireConfirms();
+    wireDriftPicker();
     drawCharts();
     wireUploads();
     followProgress();

@@ -12,7 +12,7 @@ from werkzeug.exceptions import Forbidden, Unauthorized
 import actdoc
 from actdoc.web import api, assets, errors, pages
 from actdoc.web.worker import AnalysisWorker
-from actdoc.web.embed import embed_json, number, percent
+from actdoc.web.embed import embed_json, first_sentence, number, percent
 from actdoc.workspace import (
     DEFAULT_MAX_UPLOAD_BYTES,
     UploadSpool,
@@ -53,6 +53,8 @@ class State:
         self.workspace = workspace
         self.worker = worker
         self.demo = demo
+        #: In demo mode: bundled dump id -> (its demo_models.Demo, position among its files).
+        self.demo_files: dict = {}
 
 
 def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
@@ -77,7 +79,8 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
     worker = AnalysisWorker(workspace)
     app.extensions["actdoc"] = State(workspace, worker, demo)
 
-    app.jinja_env.filters.update(embed_json=embed_json, number=number, percent=percent)
+    app.jinja_env.filters.update(embed_json=embed_json, first_sentence=first_sentence,
+                                  number=number, percent=percent)
     app.jinja_env.globals.update(app_version=actdoc.__version__)
     app.before_request(guard)
     app.after_request(remember_token)
@@ -87,17 +90,27 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
     errors.register(app)
 
     if demo:
-        add_demo_dumps(workspace)
+        app.extensions["actdoc"].demo_files = add_demo_dumps(workspace)
     worker.start()
     return app
 
 
-def add_demo_dumps(workspace: Workspace) -> None:
-    """Put the bundled demo dumps in the workspace (already stored ones are recognised)."""
-    from demo_models import bundled_dumps
+def add_demo_dumps(workspace: Workspace) -> dict:
+    """Put the bundled demo dumps in the workspace (already stored ones are recognised).
 
+    Returns each stored dump's id mapped to the ``demo_models.Demo`` it belongs to and its
+    file's position among the demo's files (checkpoints of one run count from 0).
+    """
+    from demo_models import DEMOS, bundled_dumps
+
+    demo_of = {file_name: demo for demo in DEMOS for file_name in demo.files}
+    demo_files = {}
     for path in bundled_dumps():
-        workspace.ingest_path(path)
+        record, _created = workspace.ingest_path(path)
+        if path.name in demo_of:
+            demo = demo_of[path.name]
+            demo_files[record.id] = (demo, demo.files.index(path.name))
+    return demo_files
 
 
 def _token_matches(candidate: str | None) -> bool:

@@ -77,3 +77,9 @@ def percent(value: Any) -> str:
     if share < 0.1:
         return "<0.1%"
     return f"{share:.1f}%" if share < 10 else f"{share:.0f}%"
+
+
+def first_sentence(text: str) -> str:
+    """The first sentence of a paragraph (up to the first full stop followed by a space)."""
+    head, stop, _rest = str(text).partition(". ")
+    return head + "." if stop else head

@@ -2,7 +2,8 @@
 
 Statuses: a dump the readers refuse 422 with their sentence, a file of neither type 415, a file
 or member too large 413, an unknown dump 404, findings asked for too early 409, a malformed
-request 400. Any other exception is a bug: 500 with a short sentence, the traceback in the log.
+request or dumps that cannot be compared 400. Any other exception is a bug: 500 with a short
+sentence, the traceback in the log.
 """
 
 from __future__ import annotations
@@ -12,6 +13,7 @@ import logging
 from flask import Flask, jsonify, make_response, render_template, request
 from werkzeug.exceptions import HTTPException
 
+from actdoc.compare import IncomparableDumps
 from actdoc.errors import ActdocError, DumpTooLarge, UnsupportedFormat
 from actdoc.workspace import NotReady, UnknownDump, UploadTooLarge
 
@@ -24,6 +26,7 @@ STATUS_BY_CLASS: tuple[tuple[type[BaseException], int], ...] = (
     (UploadTooLarge, 413),
     (DumpTooLarge, 413),
     (UnsupportedFormat, 415),
+    (IncomparableDumps, 400),
     (ActdocError, 422),
 )
 

@@ -64,7 +64,7 @@ def depth_fractions(findings: Findings, checks: Sequence[str]) -> dict[str, Any]
         shares = [report.fractions.get(check) for report in findings.layers]
         if not any(share for share in shares if share is not None):
             continue
-        traces.append({"type": "bar", "name": check, "x": names, "y": shares,
+        traces.append({"type": "bar", "name": check.replace("_", " "), "x": names, "y": shares,
                        "marker": {"color": CHECK_COLOURS.get(check, MUTED)},
                        "hovertemplate": "%{x}: %{y:.1%} " + check + "<extra></extra>"})
     return {"data": traces, "layout": base_layout(

@@ -8,6 +8,7 @@ from flask import Blueprint, jsonify, redirect, render_template, request, url_fo
 from werkzeug.exceptions import BadRequest, NotFound
 
 from actdoc.model import CAVEAT, LayerReport
+from actdoc.web import drift as drift_view
 from actdoc.web import views
 from actdoc.web.api import dump_object, receive_upload, state
 from actdoc.web.embed import plain
@@ -49,8 +50,46 @@ def check_unit(report: LayerReport, unit: int) -> None:
 @blueprint.get("/")
 def home():
     records = state().workspace.list()
-    return respond("home.html", {"dumps": [dump_object(r) for r in records],
-                                 "demo": state().demo})
+    dumps = []
+    for record in records:
+        entry = dump_object(record)
+        if record.id in state().demo_files:
+            demo, position = state().demo_files[record.id]
+            entry["demo"] = {"name": demo.name, "title": demo.title,
+                             "description": demo.description, "checkpoint": position + 1,
+                             "checkpoints": len(demo.files)}
+        dumps.append(entry)
+    return respond("home.html", {"dumps": dumps, "demo": state().demo,
+                                 "demo_series": demo_series_links()})
+
+
+def demo_series_links() -> list[dict[str, str]]:
+    """For each demo made of several checkpoints, the Drift page over all of them."""
+    series: dict[str, list[tuple[int, str]]] = {}
+    titles: dict[str, str] = {}
+    for dump_id, (demo, position) in state().demo_files.items():
+        if len(demo.files) > 1:
+            series.setdefault(demo.name, []).append((position, dump_id))
+            titles[demo.name] = demo.title
+    return [{"title": titles[name], "url": url_for("pages.drift",
+                                                    dump=[i for _p, i in sorted(picked)])}
+            for name, picked in series.items()]
+
+
+@blueprint.get("/drift")
+def drift():
+    """Several ready dumps of one model side by side (``?dump=ID&dump=ID...``)."""
+    workspace = state().workspace
+    try:
+        ids = drift_view.picked_ids(request.args.getlist("dump"))
+    except drift_view.TooFewDumps as error:
+        raise BadRequest(str(error))
+    records = drift_view.series_order([workspace.get(dump_id) for dump_id in ids])
+    series = [workspace.findings(record.id) for record in records]
+    payload = drift_view.drift(records, series)
+    payload["dumps"] = [{**dump_object(record), "label": label}
+                        for record, label in zip(records, payload["labels"])]
+    return respond("drift.html", payload)
 
 
 @blueprint.post("/upload")

@@ -11,7 +11,15 @@ from typing import Any
 
 import numpy as np
 
-from actdoc.model import CAVEAT, Dump, Findings, LayerReport
+from actdoc.model import (
+    CAVEAT,
+    RECTIFIED_KINDS,
+    SQUASHING_KINDS,
+    ActivationKind,
+    Dump,
+    Findings,
+    LayerReport,
+)
 from actdoc.reports.document import finding_entry, layer_entry, ordered_findings, verdict
 from actdoc.web import figures
 from actdoc.web.embed import plain
@@ -25,6 +33,26 @@ MAX_UNITS_PER_PAGE = 500
 UNIT_BINS = 60
 #: Incoming weights listed in a unit's JSON (the histogram always uses all of them).
 MAX_LISTED_WEIGHTS = 4096
+#: The unit roster's measures per kind, after "unit" and "state": the ones that tell the
+#: kind's failure modes apart, so the table fits a 1280 px window. The unit card shows all.
+ROSTER_COLUMNS = {
+    "rectified": ("active_fraction", "mean", "std", "max", "dormant_score", "gradient_gain"),
+    "switching": ("active_fraction", "mean", "std", "bimodality"),
+    "squashing": ("mean", "std", "low_fraction", "high_fraction", "linear_fraction",
+                  "bimodality", "gradient_gain"),
+    "other": ("mean", "std", "min", "max", "gradient_gain"),
+}
+
+
+def roster_columns(kind: ActivationKind) -> tuple[str, ...]:
+    """The unit roster's measure columns for a layer of ``kind``."""
+    if kind in RECTIFIED_KINDS:
+        return ROSTER_COLUMNS["rectified"]
+    if kind in (ActivationKind.THRESHOLD, ActivationKind.STOCHASTIC_BINARY):
+        return ROSTER_COLUMNS["switching"]
+    if kind in SQUASHING_KINDS:
+        return ROSTER_COLUMNS["squashing"]
+    return ROSTER_COLUMNS["other"]
 
 
 def findings_for_page(findings: Findings, entries: list) -> list[dict[str, Any]]:
@@ -81,20 +109,25 @@ def _sort_key(values: np.ndarray) -> np.ndarray:
 def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = False,
               page: int = 1, per_page: int = UNITS_PER_PAGE,
               state: str | None = None) -> dict[str, Any]:
-    """One page of the unit table, sorted and filtered on the server (thousands stay fast)."""
+    """One page of the unit table, sorted and filtered on the server (thousands stay fast).
+
+    Rows carry the kind's roster columns; ``sort`` may name any column of the unit table.
+    """
     table = {name: np.asarray(values) for name, values in report.unit_table.items()}
     units = report.info.units
     table["unit"] = np.arange(units)
     states = np.asarray(table.get("state", np.full(units, "")), dtype=str)
-    # "observations" is the same for every unit (the page header shows it).
-    columns = ["unit", "state"] + [c for c in report.unit_table
-                                   if c not in ("state", "observations")
-                                   and not _all_missing(table[c])]
-    columns = [c for c in columns if c in table]
+    measures = list(roster_columns(report.info.kind))
+    if np.any(table.get("nonfinite", 0)):
+        measures.append("nonfinite")
+    columns = ["unit", "state"] + [c for c in measures
+                                   if c in table and not _all_missing(table[c])]
     picked = np.arange(units) if not state else np.flatnonzero(
         states == ("" if state == "none" else state))
     if sort not in table:
         sort = "unit"
+    if sort not in columns:  # sorted by a measure the roster leaves out: show it too
+        columns.append(sort)
     keys = _sort_key(table[sort][picked])
     order = np.argsort(keys, kind="stable")
     if descending:

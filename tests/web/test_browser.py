@@ -1,6 +1,9 @@
-"""The dashboard in a real headless Chromium: upload, wait, survey, close-up, unit card.
+"""The dashboard in a real headless Chromium: upload, wait, survey, close-up, unit card; and in
+demo mode the Shelf's demo notes, the Drift page over the demo checkpoints, and the Survey
+screenshot the README shows.
 
-Screenshots of each page land in tests/artifacts/ for a person to look at.
+Screenshots of each page land in tests/artifacts/ for a person to look at. With
+ACTDOC_UPDATE_SCREENSHOTS=1 the README's image, docs/img/overview.png, is written afresh.
 """
 
 from __future__ import annotations
@@ -13,10 +16,13 @@ from pathlib import Path
 import pytest
 
 from actdoc.web import create_app
+from conftest import wait_until_done
 
 pytestmark = pytest.mark.browser
 
-ARTIFACTS = Path(__file__).resolve().parents[1] / "artifacts"
+REPO = Path(__file__).resolve().parents[2]
+ARTIFACTS = REPO / "tests" / "artifacts"
+DOCS_IMAGE = REPO / "docs" / "img" / "overview.png"
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
                  "--no-first-run", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync"]
@@ -44,11 +50,10 @@ def browser():
         launched.close()
 
 
-@pytest.fixture(scope="module")
-def live_url(tmp_path_factory):
+def serve_in_thread(app):
+    """Serve ``app`` on a free loopback port; yields the base URL."""
     import waitress
 
-    app = create_app(tmp_path_factory.mktemp("live-workspace"))
     server = waitress.create_server(app, host="127.0.0.1", port=0, threads=4)
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
@@ -56,9 +61,32 @@ def live_url(tmp_path_factory):
     server.close()
 
 
+@pytest.fixture(scope="module")
+def live_url(tmp_path_factory):
+    yield from serve_in_thread(create_app(tmp_path_factory.mktemp("live-workspace")))
+
+
+@pytest.fixture(scope="module")
+def demo_url(tmp_path_factory):
+    """The dashboard in demo mode, every bundled dump analysed."""
+    app = create_app(tmp_path_factory.mktemp("demo-workspace"), demo=True)
+    client = app.test_client()
+    for dump in client.get("/api/dumps").get_json():
+        assert wait_until_done(client, dump["id"])["status"] == "ready", dump["name"]
+    yield from serve_in_thread(app)
+
+
 def shoot(page, name: str) -> None:
     ARTIFACTS.mkdir(exist_ok=True)
     page.screenshot(path=str(ARTIFACTS / f"web-{name}.png"), full_page=True)
+
+
+def roster_fits(page) -> bool:
+    """The unit roster needs no sideways scrolling: the table is no wider than its box."""
+    return page.evaluate("""() => {
+        const table = document.querySelector('table.units');
+        return table.scrollWidth <= table.parentElement.clientWidth;
+    }""")
 
 
 def chart_title(page, key: str) -> str:
@@ -86,6 +114,7 @@ def test_upload_then_survey_close_up_and_unit_card(browser, live_url, planted_du
     assert "Total inputs of hidden2" in chart_title(page, "inputs")
     assert "Unit map" in chart_title(page, "unit_map")
     assert page.locator("table.units tbody tr").count() == 16
+    assert roster_fits(page)
     shoot(page, "close-up")
 
     point = page.locator("#chart-unit_map .scatterlayer .point").first
@@ -103,5 +132,54 @@ def test_upload_then_survey_close_up_and_unit_card(browser, live_url, planted_du
     page.goto(live_url + "/dumps/nothing-here")
     assert page.locator(".error-page").count() == 1
     shoot(page, "not-found")
+    assert errors == []
+    page.close()
+
+
+def test_demo_shelf_drift_page_and_the_readme_survey(browser, demo_url):
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
+    errors: list[str] = []
+    page.on("pageerror", lambda error: errors.append(str(error)))
+
+    page.goto(demo_url + "/")
+    assert page.locator(".demo-note", has_text="Units dying step by step").count() == 5
+    button = page.locator("#drift-button")
+    assert button.is_disabled()
+    shoot(page, "shelf-demo")
+    # Tick two dumps by hand: the button comes alive and opens the Drift page over both.
+    page.check('input[aria-label="compare relu_dying_step1.h5"]')
+    page.check('input[aria-label="compare relu_dying_step5.h5"]')
+    button.click()
+    page.wait_for_url("**/drift?*")
+    assert page.locator("table.drift thead th.num").count() == 2
+
+    page.goto(demo_url + "/")
+    page.click("text=compare the demo checkpoints")
+    page.wait_for_url("**/drift?*")
+    assert "hidden2" in chart_title(page, "layer-1")
+    labels = page.locator("table.drift thead th.num").all_text_contents()
+    assert labels == ["step1", "step2", "step3", "step4", "step5"]
+    # docs/demo.md: the dead share of the second layer climbs from one unit to about half.
+    dead_row = page.locator("table.drift tbody", has_text="hidden2").locator(
+        "tr", has_text="dead").first.locator("td.num").all_text_contents()
+    assert dead_row[0].startswith("1.6%") and dead_row[-1].startswith("52%")
+    assert page.locator(".changes li", has_text="became dead").count() >= 4
+    shoot(page, "drift")
+
+    page.goto(demo_url + "/")
+    page.click("text=logistic_deep_old_init.h5")
+    page.wait_for_url("**/dumps/*")
+    assert "Share of units in each check" in chart_title(page, "depth")
+    chart_title(page, "signal")
+    if os.environ.get("ACTDOC_UPDATE_SCREENSHOTS") == "1":
+        DOCS_IMAGE.parent.mkdir(parents=True, exist_ok=True)
+        page.screenshot(path=str(DOCS_IMAGE), full_page=True)
+    shoot(page, "survey-demo")
+
+    page.click("table.layers >> text=hidden4")
+    page.wait_for_url("**/layers/*")
+    chart_title(page, "inputs")
+    assert roster_fits(page)
+    shoot(page, "close-up-logistic")
     assert errors == []
     page.close()
