@@ -13,24 +13,38 @@ optional dependency (``pip install 'actdoc[dask]'``); it is imported when this m
 
 from __future__ import annotations
 
+import hashlib
+import os
 from contextlib import contextmanager
 from functools import reduce
 from pathlib import Path
 from typing import Any, Callable, Iterator, Sequence
 
 from actdoc.analysis.defaults import Settings
+from actdoc.analysis.engine import findings_from_stats
 from actdoc.analysis.stats import LayerStats, accumulate_layer
 from actdoc.errors import ActdocError
-from actdoc.model import Findings
+from actdoc.model import Dump, Findings, Layer, SourceInfo
 
 
 def shard_layer_stats(path: str, layer_name: str, settings: Settings,
-                      open_options: dict[str, Any]) -> LayerStats:
-    """On a worker: open one shard, pass over one layer, return its statistics."""
+                      open_options: dict[str, Any], offset: int = 0,
+                      total_samples: int | None = None) -> LayerStats:
+    """On a worker: open one shard, pass over one layer, return its statistics.
+
+    The shard's samples are numbered from ``offset`` within a dump of ``total_samples``, as in
+    the concatenated file, so the statistics equal that file's over the same samples.
+    """
     from actdoc.io import open_dump
+    from actdoc.io.shards import place_layer
 
     with open_dump(path, **open_options) as dump:
-        return accumulate_layer(dump.layer(layer_name), settings)
+        layer = dump.layer(layer_name)
+        samples = layer.info.samples
+        if total_samples is not None:
+            layer = place_layer(layer, offset, total_samples)
+        return accumulate_layer(layer, settings, start_sample=offset,
+                                stop_sample=offset + samples)
 
 
 def _import_dask():
@@ -54,8 +68,6 @@ def connect(scheduler: Any = None, workers: int | None = None) -> Iterator[Any]:
         yield scheduler
         return
     if scheduler is None or str(scheduler) == "local":
-        import os
-
         count = workers or max(1, min(4, os.cpu_count() or 1))
         with distributed.LocalCluster(n_workers=count, threads_per_worker=1, processes=True,
                                       dashboard_address=None) as cluster, \
@@ -83,44 +95,86 @@ def analyze_shards(
     a list of files); the shards are validated first. ``scheduler`` is a scheduler address
     ("tcp://host:8786"), an existing Client, or None / "local" for a LocalCluster on this
     machine. ``progress(fraction)`` is called as (shard, layer) tasks finish, weighted by the
-    observations each covers.
+    values each covers. The findings' source names the shards (see ``sharded_source``).
     """
+    from actdoc.io import open_dump
     from actdoc.io.shards import shard_layout
 
     settings = settings or Settings()
     open_options = dict(open_options or {})
     layout = shard_layout(paths, **open_options)
+    if progress is not None:
+        progress(0.0)
     with connect(scheduler) as client:
+        digests = client.map(file_sha256, [str(Path(p).resolve()) for p in layout.paths],
+                             pure=False)
         merged = _gather_merged(client, layout, settings, open_options, progress)
-    return _findings(layout, merged, settings)
+        source = sharded_source(layout, client.gather(digests))
+    with open_dump(layout.paths[0], **open_options) as first:
+        whole = _concatenated_dump(first, layout)
+        findings = findings_from_stats(whole, merged, settings, source)
+    if progress is not None:
+        progress(1.0)
+    return findings
 
 
-def _gather_merged(client, layout, settings, open_options, progress) -> list[LayerStats]:
-    """Submit one task per (shard, layer); merge each layer's results in shard order."""
+def file_sha256(path: str) -> str:
+    """On a worker: the SHA-256 of one shard file, so hashing runs in parallel too."""
+    from actdoc.io import file_sha256 as digest
+
+    return digest(path)
+
+
+def sharded_source(layout, digests: Sequence[str]) -> SourceInfo:
+    """The findings' source for shards: a manifest digest over the shards' own digests.
+
+    ``sha256`` is the SHA-256 of the text ``sha256sum`` prints for the shard files in shard
+    order ("<hex>  <name>" lines), so ``sha256sum part1.h5 part2.h5 ... | sha256sum`` gives the
+    same value. ``file`` names the first and last shard and their count.
+    """
+    manifest = "".join(f"{digest}  {Path(path).name}\n"
+                       for digest, path in zip(digests, layout.paths))
+    names = [Path(p).name for p in layout.paths]
+    label = names[0] if len(names) == 1 else f"{names[0]} .. {names[-1]} ({len(names)} shards)"
+    return SourceInfo(file=label, sha256=hashlib.sha256(manifest.encode()).hexdigest(),
+                      format=layout.format, samples=layout.samples)
+
+
+def _gather_merged(client, layout, settings, open_options,
+                   progress) -> list[LayerStats | None]:
+    """Submit one task per (shard, layer); merge each layer's results in shard order.
+
+    Layers without activations (weights only) get None, as in the local engine.
+    """
     import distributed
 
-    futures = {}
-    weights = {}
-    for shard_index, path in enumerate(layout.paths):
-        for layer_index, info in enumerate(layout.layers):
+    futures, weights = {}, {}
+    for layer_index, info in enumerate(layout.layers):
+        if not any(info.has(array) for array in ("preact", "output")):
+            continue
+        offset = 0
+        for shard_index, path in enumerate(layout.paths):
+            samples = layout.layer_samples[shard_index][layer_index]
             key = (shard_index, layer_index)
             futures[key] = client.submit(
                 shard_layer_stats, str(Path(path).resolve()), info.name, settings, open_options,
-                key=f"actdoc-stats-{shard_index}-{layer_index}-{id(futures)}", pure=False)
-            weights[key] = max(1, info.units * layout.shard_samples[shard_index])
+                offset, info.samples, pure=False)
+            weights[key] = max(1, info.units * info.positions * samples)
+            offset += samples
     owner = {future.key: key for key, future in futures.items()}
     results: dict[tuple[int, int], LayerStats] = {}
-    total, done = float(sum(weights.values())), 0.0
+    total, done = float(sum(weights.values()) or 1), 0.0
     for future in distributed.as_completed(list(futures.values())):
         key = owner[future.key]
         results[key] = _result(future, layout.paths[key[0]], layout.layers[key[1]].name)
         done += weights[key]
         if progress is not None:
-            progress(done / total)
-    return [
-        reduce(LayerStats.merge, [results[(s, index)] for s in range(len(layout.paths))])
-        for index in range(len(layout.layers))
-    ]
+            progress(0.99 * done / total)
+    merged: list[LayerStats | None] = []
+    for index in range(len(layout.layers)):
+        parts = [results[(s, index)] for s in range(len(layout.paths)) if (s, index) in results]
+        merged.append(reduce(LayerStats.merge, parts) if parts else None)
+    return merged
 
 
 def _result(future, path: Path, layer: str) -> LayerStats:
@@ -135,5 +189,10 @@ def _result(future, path: Path, layer: str) -> LayerStats:
             f"{exc})") from None
 
 
-def _findings(layout, merged: list[LayerStats], settings: Settings) -> Findings:
-    raise NotImplementedError  # replaced once the engine's stats-to-findings function exists
+def _concatenated_dump(first: Dump, layout) -> Dump:
+    """The dump the shards make together: the layout's layer descriptions (total samples) with
+    the first shard's parameter arrays (equal in every shard). Its activations are never read:
+    their statistics come merged from the workers."""
+    layers = tuple(Layer(info=info, sources=layer.sources)
+                   for info, layer in zip(layout.layers, first.layers))
+    return Dump(path=first.path, format=layout.format, layers=layers, samples=layout.samples)

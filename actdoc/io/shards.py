@@ -51,6 +51,11 @@ def _has_glob(text: str) -> bool:
     return any(ch in text for ch in "*?[")
 
 
+def is_sharded(spec: str | Path) -> bool:
+    """Whether a command-line DUMP argument names shards (a folder or a glob pattern)."""
+    return Path(spec).is_dir() or (_has_glob(str(spec)) and not Path(spec).exists())
+
+
 def find_shards(spec: str | Path | Sequence[str | Path]) -> list[Path]:
     """The shard files a spec names: a folder, a glob pattern, or an explicit list of files."""
     if not isinstance(spec, (str, Path)):

@@ -1,0 +1,79 @@
+"""Flat memory: ``actdoc analyze`` finishes a dump larger than the address space it may use."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import h5py
+import numpy as np
+import pytest
+
+BENCHMARKS = Path(__file__).resolve().parents[2] / "benchmarks"
+#: Address-space limit of the analysing process. numpy and h5py imports need about 115 MB of
+#: it with one BLAS thread (measured on this project's machines); the analysis keeps a few
+#: 16 MiB blocks and float64 row slices on top.
+LIMIT_MB = 400
+DUMP_GB = 0.6
+
+LIMITED_ANALYZE = """
+import resource, sys
+limit = int(sys.argv[1]) << 20
+resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
+from actdoc.cli import main
+sys.exit(main(["analyze", sys.argv[2], "--format", "json"]))
+"""
+
+
+@pytest.fixture(scope="module")
+def big_dump(tmp_path_factory) -> Path:
+    sys.path.insert(0, str(BENCHMARKS))
+    try:
+        from dumps import ensure_bench_dump
+    finally:
+        sys.path.remove(str(BENCHMARKS))
+    return ensure_bench_dump(tmp_path_factory.mktemp("big"), DUMP_GB).path
+
+
+def never_positive_units(path: Path, layer: str) -> list[int]:
+    """Units whose output is never above zero, counted with h5py and numpy block by block."""
+    seen = None
+    with h5py.File(path, "r") as handle:
+        output = handle["layers"][layer]["output"]
+        for first in range(0, output.shape[0], 8192):
+            fired = (output[first:first + 8192] > 0).any(axis=0)
+            seen = fired if seen is None else seen | fired
+    return [int(u) for u in np.flatnonzero(~seen)]
+
+
+@pytest.mark.slow
+def test_analyze_completes_under_an_address_space_limit_below_the_dump_size(big_dump):
+    size_mb = big_dump.stat().st_size / 2**20
+    assert size_mb > LIMIT_MB * 1.4, "the dump must be clearly larger than the limit"
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1")
+    done = subprocess.run([sys.executable, "-c", LIMITED_ANALYZE, str(LIMIT_MB), str(big_dump)],
+                          capture_output=True, text=True, env=env, timeout=240)
+    assert done.returncode == 0, done.stderr[-2000:]
+    document = json.loads(done.stdout)
+    with h5py.File(big_dump, "r") as handle:
+        samples = handle["layers"]["layer1"]["preact"].shape[0]
+    assert document["source"]["samples"] == samples
+    dead = {f["layer"]: f["units"] for f in document["findings"] if f["check"] == "dead"}
+    # Reference: a plain numpy count over the stored outputs (no actdoc code involved).
+    for layer in ("layer1", "layer4"):
+        assert dead[layer] == never_positive_units(big_dump, layer)
+
+
+def test_the_limit_bites(big_dump):
+    """Control: under the same limit, loading one layer's two arrays whole fails."""
+    code = ("import resource, sys, h5py\n"
+            f"resource.setrlimit(resource.RLIMIT_AS, ({LIMIT_MB} << 20, {LIMIT_MB} << 20))\n"
+            "f = h5py.File(sys.argv[1], 'r')\n"
+            "kept = [f['layers'][n][a][()] for n in f['layers'] for a in ('preact', 'output')]\n")
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1")
+    done = subprocess.run([sys.executable, "-c", code, str(big_dump)], capture_output=True,
+                          text=True, env=env, timeout=120)
+    assert done.returncode != 0 and "MemoryError" in done.stderr + done.stdout
