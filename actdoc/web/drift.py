@@ -44,8 +44,9 @@ def series_order(records: Sequence[DumpRecord]) -> list[DumpRecord]:
 
 def short_labels(names: Sequence[str]) -> list[str]:
     """Axis labels: file names without the extension and without the prefix they all share
-    up to a separator ("relu_dying_step1.h5", ... -> "step1", ...). Full stems when that
-    would leave a label empty or make two alike."""
+    up to a separator ("relu_dying_step1.h5", ... -> "step1", ...). Full stems when cutting
+    would leave a label empty or make two alike; positions added when even those repeat (two
+    uploads named "model.h5")."""
     stems = [re.sub(r"\.(h5|hdf5|npz)$", "", name, flags=re.IGNORECASE) for name in names]
     prefix = stems[0]
     for stem in stems[1:]:
@@ -54,7 +55,9 @@ def short_labels(names: Sequence[str]) -> list[str]:
     cut = max(prefix.rfind(sep) for sep in "_-. ") + 1
     labels = [stem[cut:] for stem in stems]
     if any(not label for label in labels) or len(set(labels)) < len(labels):
-        return stems
+        labels = stems
+    if len(set(labels)) < len(labels):
+        labels = [f"{label} ({position})" for position, label in enumerate(labels, start=1)]
     return labels
 
 
