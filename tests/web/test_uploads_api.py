@@ -45,7 +45,7 @@ def test_findings_document_names_the_planted_units(client, ready_dump):
     assert by_check[("hidden2", "saturated")]["units"] == list(SATURATED_UNITS)
 
 
-def test_findings_come_as_csv_and_markdown(client, ready_dump):
+def test_findings_come_as_csv_markdown_and_text(client, ready_dump):
     csv = client.get(f"/api/dumps/{ready_dump}/findings.csv")
     assert csv.status_code == 200 and csv.mimetype == "text/csv"
     assert "dead" in csv.get_data(as_text=True)
@@ -53,6 +53,10 @@ def test_findings_come_as_csv_and_markdown(client, ready_dump):
     assert md.status_code == 200 and md.mimetype == "text/markdown"
     assert 'filename="planted-findings.md"' in md.headers["Content-Disposition"]
     assert client.get(f"/api/dumps/{ready_dump}/findings.xml").status_code == 404
+    text = client.get(f"/api/dumps/{ready_dump}/findings.txt")
+    assert text.status_code == 200 and text.mimetype == "text/plain"
+    assert "hidden1" in text.get_data(as_text=True)
+    assert "Content-Disposition" not in text.headers
 
 
 def test_same_bytes_uploaded_twice_are_one_dump(client, workspace, planted_dump):
