@@ -1,0 +1,1 @@
+"""Cross-checks of actdoc against outside reference libraries (PyTorch, scikit-learn)."""
