@@ -183,7 +183,7 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
     low, high = occupied_range(edges, counts)
     shapes, notes, reach = zone_shapes(info, settings)
     if reach is not None:
-        low, high = min(low, -1.25 * reach), max(high, 1.25 * reach)
+        low, high = min(low, -1.5 * reach), max(high, 1.5 * reach)  # room for the zone label
     curve = curve_trace(info, low, high)
     curve_axis = {"overlaying": "y", "side": "right", "showgrid": False,
                   "title": {"text": "output f(z)"}, "nticks": 6}
