@@ -84,19 +84,30 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--demo", action="store_true", help="load the bundled demo dumps")
     serve.add_argument("--token", help="access token required off loopback (default: random)")
 
+    compare = sub.add_parser(
+        "compare", help="what changed between analyses of checkpoints of one model")
+    compare.add_argument("dumps", nargs="+", metavar="DUMP",
+                         help="two or more dumps of the same layers, oldest first")
+    compare.add_argument("--format", choices=("text", "json"), default="text")
+    compare.add_argument("--set", dest="overrides", action="append", default=[],
+                         metavar="NAME=VALUE", help="override one threshold")
+    compare.add_argument("--config", type=Path, metavar="TOML",
+                         help="a TOML file of threshold overrides")
+
     demo = sub.add_parser("demo", help="train the demo networks and write their dumps")
     demo.add_argument("--output", type=Path, default=Path("actdoc-demo"), metavar="DIR")
     return parser
 
 
-def _analyse(args: argparse.Namespace, label: str):
+def _analyse(args: argparse.Namespace, label: str, path: Path | None = None):
     """Open the dump, run the engine with a progress bar, return the Findings."""
     from actdoc.analysis import analyze
     from actdoc.analysis.defaults import load_settings
     from actdoc.io import open_dump
 
     settings = load_settings(args.config, args.overrides)
-    with open_dump(args.dump, activations=args.activation) as dump:
+    activations = getattr(args, "activation", ())
+    with open_dump(path or args.dump, activations=activations) as dump:
         return analyze(dump, settings, progress=ProgressBar(label))
 
 
@@ -149,6 +160,35 @@ def cmd_check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_compare(args: argparse.Namespace) -> int:
+    import json
+
+    from actdoc.compare import compare_series, comparison_document
+
+    if len(args.dumps) < 2:
+        raise ActdocError("actdoc compare needs at least two dumps")
+    series = [_analyse(args, f"analysing {Path(p).name}", Path(p)) for p in args.dumps]
+    comparison = compare_series(series)
+    if args.format == "json":
+        sys.stdout.write(json.dumps(comparison_document(comparison), indent=2) + "\n")
+        return EXIT_OK
+    print("share of units per check, in the order given: "
+          + ", ".join(f"[{i + 1}] {name}" for i, name in enumerate(comparison.files)))
+    for track in comparison.layers:
+        shown = [c for c in track.checks if any(s > 0 for s in track.shares[c])]
+        for check in shown:
+            shares = "  ".join(f"{100 * s:5.1f}%" for s in track.shares[check])
+            print(f"{track.name:<16} {check:<16} {shares}")
+    for step in comparison.steps:
+        before, after = comparison.files[step.before], comparison.files[step.after]
+        print(f"\n{before} -> {after}:")
+        if not step.changes:
+            print("  no unit changed state")
+        for change in step.changes:
+            print(f"  {change.sentence()}")
+    return EXIT_OK
+
+
 def cmd_serve(args: argparse.Namespace) -> int:
     from actdoc.web import serve
 
@@ -173,7 +213,8 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
-    "analyze": cmd_analyze, "check": cmd_check, "serve": cmd_serve, "demo": cmd_demo,
+    "analyze": cmd_analyze, "check": cmd_check, "compare": cmd_compare, "serve": cmd_serve,
+    "demo": cmd_demo,
 }
 
 

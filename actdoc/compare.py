@@ -16,17 +16,13 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from actdoc.errors import ActdocError
+from actdoc.errors import IncomparableDumps
 from actdoc.model import Findings, LayerReport, LayerStatus
 
 #: How a unit that no check names is spelled in a unit state column and in the changes.
 NO_STATE = ""
 #: Units spelled out in a change's sentence; the rest are counted ("and 12 more").
 UNITS_IN_SENTENCE = 12
-
-
-class IncomparableDumps(ActdocError):
-    """Two dumps cannot be compared: their layers differ in name, unit count or kind."""
 
 
 @dataclass(frozen=True)

@@ -46,6 +46,10 @@ class DumpTooLarge(InvalidDump):
     """An archive member declares more bytes than the configured limit allows."""
 
 
+class IncomparableDumps(ActdocError):
+    """Two dumps cannot be compared: their layers differ in name, unit count or kind."""
+
+
 class InvalidSetting(ActdocError):
     """A threshold override names an unknown setting or gives an unusable value."""
 

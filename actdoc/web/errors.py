@@ -13,8 +13,7 @@ import logging
 from flask import Flask, jsonify, make_response, render_template, request
 from werkzeug.exceptions import HTTPException
 
-from actdoc.compare import IncomparableDumps
-from actdoc.errors import ActdocError, DumpTooLarge, UnsupportedFormat
+from actdoc.errors import ActdocError, DumpTooLarge, IncomparableDumps, UnsupportedFormat
 from actdoc.workspace import NotReady, UnknownDump, UploadTooLarge
 
 log = logging.getLogger(__name__)

@@ -126,3 +126,23 @@ def test_console_script_has_no_traceback_on_bad_input(tmp_path):
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr and "bad.npz" in proc.stderr
     assert len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_compare_names_the_units_that_died_between_checkpoints(capsys, tmp_path):
+    # Ground truth by construction: units planted dead in the later dump only.
+    early = _write(tmp_path / "early.h5", dead=[1])
+    late = _write(tmp_path / "late.h5", dead=[1, 4, 6])
+    status, out, _ = run(capsys, "compare", str(early), str(late), "--format", "json")
+    assert status == 0
+    step = json.loads(out)["steps"][0]
+    became_dead = [c for c in step["changes"] if c["after"] == "dead" and c["before"] is None]
+    assert [c["units"] for c in became_dead] == [[4, 6]]
+    status, out, _ = run(capsys, "compare", str(early), str(late))
+    assert status == 0 and "hidden: 2 units became dead: 4, 6" in out
+
+
+def test_compare_refuses_different_models(capsys, tmp_path):
+    a = _write(tmp_path / "a.h5", units=8)
+    b = _write(tmp_path / "b.h5", units=6)
+    status, _, err = run(capsys, "compare", str(a), str(b))
+    assert status == 2 and "cannot be compared" in err and err.count("\n") == 1

@@ -85,5 +85,6 @@ def linear_regime(unit: UnitInput) -> UnitVerdict | None:
     return UnitVerdict(
         mask=(n > 0) & (stats.linear >= limit * n), values=unit.share(stats.linear),
         threshold=limit,
-        phrase=(f"keep their total input inside the near-linear zone on at least {limit:.0%} "
+        phrase=("never let their total input leave the near-linear zone" if limit >= 1.0 else
+                f"keep their total input inside the near-linear zone on at least {limit:.0%} "
                 f"of observations"))
