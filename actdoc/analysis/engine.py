@@ -8,7 +8,10 @@ unit is named by at most one of dead, dormant, saturated, near_binary, linear_re
 from __future__ import annotations
 
 import hashlib
+import os
+import threading
 from concurrent.futures import ThreadPoolExecutor
+from functools import reduce
 from pathlib import Path
 from typing import Callable
 
@@ -128,34 +131,104 @@ def _status(findings: list[Finding]) -> LayerStatus:
     return {2: LayerStatus.CRITICAL, 1: LayerStatus.WARNING}.get(worst, LayerStatus.HEALTHY)
 
 
-def _measure_all(dump: Dump, settings: Settings, progress: Callable[[float], None] | None):
-    """Per-layer statistics (None for layers without activations), reporting progress."""
-    work = [layer.info.observations * max(1, layer.info.units)
-            if any(layer.info.has(a) for a in ("preact", "output")) else 0
-            for layer in dump.layers]
-    total = max(1, sum(work))
-    done = 0
-    measured: list[LayerStats | None] = []
-    for layer, size in zip(dump.layers, work):
-        if size == 0:
-            measured.append(None)
+#: Stored activation bytes per task: layers larger than this are cut into sample ranges so the
+#: worker threads share even one big layer; small enough to balance, large enough that the
+#: per-task overhead (buffers, a merge) is negligible.
+TASK_BYTES = 96 << 20
+#: Worker threads never exceed this: past it the cores are busy and memory only grows.
+MAX_WORKERS = 4
+
+
+def available_cores() -> int:
+    """Cores this process may run on (the affinity mask where the OS has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # no affinity masks on this OS
+        return max(1, os.cpu_count() or 1)
+
+
+def _random_access(layer: Layer) -> bool:
+    """Whether every activation source can start reading at any sample (a compressed NPZ
+    member cannot: it would decompress everything before the range again)."""
+    return not any(getattr(source, "sequential_only", False) for source in layer.sources.values())
+
+
+def _tasks(dump: Dump, settings: Settings) -> list[tuple[int, int, int, int]]:
+    """(layer index, first sample, stop sample, work) pieces, biggest layers' pieces first.
+
+    Range boundaries fall on whole blocks of ``block_observations`` so every block is full.
+    """
+    tasks = []
+    for index, layer in enumerate(dump.layers):
+        info = layer.info
+        stored = [info.arrays[a] for a in ("preact", "output") if info.has(a)]
+        if not stored or info.samples == 0:
             continue
-        per_row = max(1, layer.info.units)
+        row_bytes = sum(np.dtype(a.dtype).itemsize * int(np.prod(a.shape[1:])) for a in stored)
+        block = max(1, settings.block_observations // max(1, info.positions))
+        pieces = 1
+        if _random_access(layer):
+            pieces = max(1, min(-(-info.samples * row_bytes // TASK_BYTES),
+                                -(-info.samples // block)))
+        per_piece = -(-info.samples // pieces)
+        step = -(-per_piece // block) * block
+        for first in range(0, info.samples, step):
+            stop = min(info.samples, first + step)
+            tasks.append((index, first, stop, (stop - first) * info.positions * info.units))
+    return sorted(tasks, key=lambda task: -task[3])
 
-        def advance(rows: int, _per_row=per_row) -> None:
+
+def _measure_all(dump: Dump, settings: Settings, progress: Callable[[float], None] | None,
+                 workers: int | None = None) -> list[LayerStats | None]:
+    """Per-layer statistics (None for layers without activations), reporting progress.
+
+    Layers (and sample ranges of big layers) are measured by worker threads: numpy releases
+    the GIL in its loops and h5py serialises its own calls, so reading and computing overlap
+    on every core while memory stays that of one process. Each layer's pieces are merged in
+    sample order, so the result does not depend on which thread finished first.
+    """
+    tasks = _tasks(dump, settings)
+    total = max(1, sum(task[3] for task in tasks))
+    done = 0
+    lock = threading.Lock()
+
+    def run(task: tuple[int, int, int, int]) -> LayerStats:
+        index, first, stop, _ = task
+        layer = dump.layers[index]
+
+        def advance(rows: int) -> None:
             nonlocal done
-            done += rows * _per_row
-            if progress is not None:
-                progress(min(1.0, done / total) * 0.99)
+            with lock:
+                done += rows * max(1, layer.info.units)
+                if progress is not None:
+                    progress(min(1.0, done / total) * 0.99)
 
-        measured.append(accumulate_layer(layer, settings, progress=advance))
+        return accumulate_layer(layer, settings, first, stop, progress=advance)
+
+    count = min(workers or min(MAX_WORKERS, available_cores()), max(1, len(tasks)))
+    if count <= 1:
+        results = [run(task) for task in tasks]
+    else:
+        with ThreadPoolExecutor(max_workers=count, thread_name_prefix="actdoc-measure") as pool:
+            results = list(pool.map(run, tasks))
+    pieces: dict[int, list[tuple[int, LayerStats]]] = {}
+    for task, stats in zip(tasks, results):
+        pieces.setdefault(task[0], []).append((task[1], stats))
+    measured: list[LayerStats | None] = []
+    for index in range(len(dump.layers)):
+        ordered = [stats for _, stats in sorted(pieces.get(index, []), key=lambda p: p[0])]
+        measured.append(reduce(LayerStats.merge, ordered) if ordered else None)
     return measured
 
 
 def analyze(dump: Dump, settings: Settings | None = None,
             progress: Callable[[float], None] | None = None,
-            source: SourceInfo | None = None) -> Findings:
-    """Measure every layer of ``dump``, run every registered check, and return the Findings."""
+            source: SourceInfo | None = None, workers: int | None = None) -> Findings:
+    """Measure every layer of ``dump``, run every registered check, and return the Findings.
+
+    ``workers`` is the number of measuring threads (default: the available cores, at most
+    MAX_WORKERS; 1 measures in the calling thread).
+    """
     settings = settings or Settings()
     if progress is not None:
         progress(0.0)
@@ -164,7 +237,7 @@ def analyze(dump: Dump, settings: Settings | None = None,
         hashing = ThreadPoolExecutor(max_workers=1, thread_name_prefix="actdoc-sha256")
         pending_source = hashing.submit(source_info, dump)
     try:
-        measured = _measure_all(dump, settings, progress)
+        measured = _measure_all(dump, settings, progress, workers)
         if hashing is not None:
             source = pending_source.result()
     finally:

@@ -155,6 +155,10 @@ class MappedSource:
 class StreamedSource:
     """ArraySource over a compressed member, decompressed front to back on demand."""
 
+    #: Reading from sample k decompresses everything before it: the engine never splits such an
+    #: array into sample ranges read in parallel.
+    sequential_only = True
+
     def __init__(self, zf: zipfile.ZipFile, path: Path, member: Member):
         self.shape, self.dtype = member.shape, member.dtype
         self._zf, self._member, self._where = zf, member, where_of(path, member.key)
