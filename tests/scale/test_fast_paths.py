@@ -1,0 +1,67 @@
+"""The engine's speed-ups change nothing but speed: table-driven bins and threaded measuring."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from actdoc.analysis import Settings, analyze
+from actdoc.analysis.histograms import Grid, grids_for
+from actdoc.io import open_dump
+from actdoc.model import ActivationKind
+
+GRIDS = {kind.value: grids_for(kind) for kind in
+         (ActivationKind.RELU, ActivationKind.LOGISTIC, ActivationKind.TANH,
+          ActivationKind.THRESHOLD)}
+
+
+def reference_counts(grid: Grid, values: np.ndarray) -> np.ndarray:
+    """numpy.histogram over the grid's float64 arithmetic, as a reference for the table path.
+
+    Each value's float64 position (asinh-transformed where the grid is) is binned by
+    np.histogram on integer edges 0..bins, after clipping into the outer bins.
+    """
+    position = grid.positions(values)
+    position = np.clip(position[~np.isnan(position)], 0, grid.bins - 0.5)
+    return np.histogram(position, bins=np.arange(grid.bins + 1))[0]
+
+
+@pytest.mark.parametrize("kind", sorted(GRIDS))
+def test_float32_table_bins_equal_the_float64_arithmetic(kind):
+    rng = np.random.default_rng(3)
+    for grid in GRIDS[kind].values():
+        edges = grid.edges.astype(np.float32)
+        # Values on, just below and just above every edge, plus wide and narrow random values.
+        near = np.concatenate([edges, np.nextafter(edges, np.float32(-np.inf)),
+                               np.nextafter(edges, np.float32(np.inf))])
+        values = np.concatenate([
+            near, (rng.standard_normal(200_000) * 3).astype(np.float32),
+            rng.uniform(grid.edges[0], grid.edges[-1], 200_000).astype(np.float32),
+            np.array([0.0, -0.0, 3e38, -3e38, 1e-40, -1e-40], np.float32)])
+        counts = grid.count(values)
+        np.testing.assert_array_equal(counts, reference_counts(grid, values))
+        assert counts.sum() == values.size
+
+
+def test_non_finite_values_still_go_to_the_outer_bins_or_nowhere():
+    grid = GRIDS["relu"]["preact"]
+    values = np.array([1.0, np.inf, -np.inf, np.nan], np.float32)
+    counts = grid.count(values)
+    assert counts.sum() == 3 and counts[0] == 1 and counts[-1] == 1
+
+
+def test_threaded_measuring_gives_the_serial_findings(sharded, monkeypatch):
+    from actdoc.analysis import engine
+
+    whole, _, _ = sharded
+    settings = Settings(block_observations=1024)
+    with open_dump(whole) as dump:
+        serial = analyze(dump, settings, workers=1)
+        monkeypatch.setattr(engine, "TASK_BYTES", 100_000)  # several sample ranges per layer
+        assert len(engine._tasks(dump, settings)) > 2 * len(dump.layers)
+        threaded = analyze(dump, settings, workers=3)
+    assert threaded.findings == serial.findings
+    for mine, theirs in zip(threaded.layers, serial.layers):
+        for name, hist in theirs.histograms.items():
+            np.testing.assert_array_equal(mine.histograms[name].counts, hist.counts)
+        np.testing.assert_allclose(mine.unit_table["std"], theirs.unit_table["std"], rtol=1e-10)
