@@ -150,9 +150,8 @@ def test_weights_only_analysis_measures_torch_weights(model, archive):
         linear = model.get_submodule(name)
         summary = findings.layer(name).weights
         assert summary.std == pytest.approx(linear.weight.std(unbiased=False).item(), rel=1e-6)
-        np.testing.assert_allclose(
-            summary.row_norms, torch.linalg.vector_norm(linear.weight.detach().double(), dim=1).numpy(),
-            rtol=1e-12)
+        torch_norms = torch.linalg.vector_norm(linear.weight.detach().double(), dim=1)
+        np.testing.assert_allclose(summary.row_norms, torch_norms.numpy(), rtol=1e-12)
         fan_in, fan_out = linear.in_features, linear.out_features
         reference = math.sqrt(2.0 / fan_in) if name != "classifier" else \
             math.sqrt(2.0 / (fan_in + fan_out))
