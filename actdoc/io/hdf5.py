@@ -167,7 +167,8 @@ def read_layers_layout(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, .
 def read_state_dict(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...], str]:
     """RawLayers from root datasets named ``<layer>.weight`` / ``<layer>.bias``."""
     names = [name for name in handle if statedict.parameter_of(name) is not None]
-    if not tracks_order(handle):
+    # The root group's plist, not the File's: the file's reports no order tracking at all.
+    if not tracks_order(handle["/"]):
         from actdoc.io.base import natural_key
 
         names.sort(key=natural_key)

@@ -71,3 +71,16 @@ def test_npz_order_attribute_in_meta_wins(tmp_path):
     meta = {"layers": [{"name": "a", "order": 1}, {"name": "b", "order": 0}]}
     np.savez(path, **{"a/preact": Z, "b/preact": Z, "actdoc_meta": np.array(json.dumps(meta))})
     assert names_of(path) == ["b", "a"]
+
+
+def test_hdf5_state_dict_keeps_tracked_creation_order(tmp_path):
+    # interfaces.md section 3: weight archives are read "in forward order of appearance"; an
+    # HDF5 file whose root group tracks creation order keeps it even where names sort otherwise.
+    path = tmp_path / "weights.h5"
+    with h5py.File(path, "w", track_order=True) as f:
+        for name, (units, fan_in) in [("zeta", (4, 3)), ("alpha", (2, 4))]:
+            f[f"{name}.weight"] = np.ones((units, fan_in), np.float32)
+            f[f"{name}.bias"] = np.zeros(units, np.float32)
+    with open_dump(path, activations=["relu"]) as dump:
+        assert [layer.name for layer in dump.layers] == ["zeta", "alpha"]
+        assert [layer.info.kind.value for layer in dump.layers] == ["relu", "linear"]

@@ -68,15 +68,6 @@ def save_hdf5(model: Classifier, path) -> None:
 SAVERS = {"npz": (save_npz, "weights.npz"), "hdf5": (save_hdf5, "weights.h5")}
 #: Kinds named layer by layer, so that a check does not depend on the order actdoc reads.
 PER_LAYER_KINDS = [f"{name}=relu" for name in FORWARD[:-1]] + [f"{FORWARD[-1]}=linear"]
-#: actdoc.io.hdf5.read_state_dict asks ``tracks_order(handle)`` of the h5py.File itself, whose
-#: FileID reports the file creation property list (link creation order 0 even when the root
-#: group tracks it); the root group, ``handle["/"]``, reports 3. The names are then sorted
-#: naturally and "classifier" comes first.
-HDF5_ROOT_ORDER_BUG = pytest.mark.xfail(
-    strict=True, reason="hdf5 state-dict reader reads creation-order tracking from the File's "
-                        "plist instead of the root group's, so torch's order is lost")
-
-
 def save(fmt: str, model: Classifier, folder):
     saver, name = SAVERS[fmt]
     saver(model, folder / name)
@@ -98,8 +89,7 @@ def test_state_dict_keys_are_what_this_test_assumes(model):
     assert keys[-2:] == ["classifier.weight", "classifier.bias"]
 
 
-@pytest.mark.parametrize("fmt", [
-    "npz", pytest.param("hdf5", marks=HDF5_ROOT_ORDER_BUG)])
+@pytest.mark.parametrize("fmt", ["npz", "hdf5"])
 def test_layers_follow_torch_order_and_default_kinds(model, fmt, tmp_path):
     # PyTorch: state_dict order is the modules' registration order, here the forward order
     with open_dump(save(fmt, model, tmp_path), activations=["relu"]) as dump:
