@@ -33,6 +33,7 @@ class ProcessRun:
 
     label: str
     wall_s: float
+    cpu_s: float
     peak_rss_mb: float
     tree_rss_mb: float
     returncode: int
@@ -102,10 +103,12 @@ def run_measured(
         done.set()
         sampler.join()
         usage = json.loads(report.read_text()) if report.exists() else {
-            "wall_s": float("nan"), "maxrss_kb": 0, "returncode": child.returncode}
+            "wall_s": float("nan"), "cpu_s": float("nan"), "maxrss_kb": 0,
+            "returncode": child.returncode}
     return ProcessRun(
         label=label,
         wall_s=usage["wall_s"],
+        cpu_s=usage["cpu_s"],
         peak_rss_mb=usage["maxrss_kb"] / 1024.0,
         tree_rss_mb=max(peak_tree[0], usage["maxrss_kb"]) / 1024.0,
         returncode=usage["returncode"],
@@ -131,8 +134,8 @@ def launch(report: Path, timeout_s: float, command: Sequence[str]) -> int:
     wall = time.perf_counter() - started
     code = os.waitstatus_to_exitcode(status)
     # ru_maxrss is in KiB on Linux.
-    report.write_text(json.dumps({"wall_s": wall, "maxrss_kb": usage.ru_maxrss,
-                                  "returncode": code}))
+    report.write_text(json.dumps({"wall_s": wall, "cpu_s": usage.ru_utime + usage.ru_stime,
+                                  "maxrss_kb": usage.ru_maxrss, "returncode": code}))
     return code
 
 

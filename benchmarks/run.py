@@ -10,9 +10,9 @@ the page cache, then runs, as whole processes and alternating within each repeti
 * ``analyze``: ``actdoc analyze DUMP --format json``, output checked;
 * ``naive``: a script loading each array whole and making one numpy pass per statistic.
 
-It prints wall time (best and median), GB/s, peak resident memory (largest process, and the
-whole process tree) and the ratios analyze / raw and naive / analyze; then the time to read one
-unit's column through ``actdoc.io``. Results also go to ``benchmarks/out/`` as JSON.
+It prints wall time (best and median), GB/s, CPU seconds (user + system, median), peak resident
+memory (largest process, and the whole process tree) and the ratios analyze / raw and
+naive / analyze; then the time to read one unit's column through ``actdoc.io``. Results also go to ``benchmarks/out/`` as JSON.
 """
 
 from __future__ import annotations
@@ -102,6 +102,7 @@ def measure_size(size_gb: float, repeats: int, cache: Path) -> dict:
         rows[name] = {
             "wall_best_s": min(walls), "wall_median_s": statistics.median(walls),
             "gb_per_s": gb / min(walls),
+            "cpu_s": statistics.median(r.cpu_s for r in done),
             "peak_rss_mb": max(r.peak_rss_mb for r in done),
             "tree_rss_mb": max(r.tree_rss_mb for r in done),
         }
@@ -156,13 +157,13 @@ def verdicts(result: dict, flat_ratio: float | None) -> list[str]:
 
 def print_table(results: list[dict]) -> None:
     print(f"{'size GB':>8} {'workload':>9} {'best s':>8} {'median s':>9} {'GB/s':>6} "
-          f"{'peak MB':>8} {'tree MB':>8}")
+          f"{'CPU s':>6} {'peak MB':>8} {'tree MB':>8}")
     first_rss = None
     for result in results:
         for name in WORKLOADS:
             row = result["workloads"][name]
             print(f"{result['size_gb']:8.2f} {name:>9} {row['wall_best_s']:8.2f} "
-                  f"{row['wall_median_s']:9.2f} {row['gb_per_s']:6.2f} "
+                  f"{row['wall_median_s']:9.2f} {row['gb_per_s']:6.2f} {row['cpu_s']:6.2f} "
                   f"{row['peak_rss_mb']:8.0f} {row['tree_rss_mb']:8.0f}")
         rss = result["workloads"]["analyze"]["tree_rss_mb"]
         flat = None if first_rss is None else rss / first_rss
