@@ -20,7 +20,7 @@ import h5py
 import numpy as np
 
 #: Candidate layouts: None is contiguous storage.
-CANDIDATES = (None, (1024, 256), (4096, 64), (256, 1024), (1024, 1024), (16384, 16), (512, 128))
+CANDIDATES = (None, (1024, 256), (2048, 128), (4096, 64), (8192, 32), (256, 1024), (1024, 1024))
 BLOCK_ROWS = 4096
 
 
