@@ -27,6 +27,10 @@ from actdoc.errors import ActdocError
 from actdoc.model import Dump, Findings, Layer, SourceInfo
 
 
+#: How long to wait for a scheduler given by address before giving up with one sentence.
+CONNECT_TIMEOUT = "20s"
+
+
 def shard_layer_stats(path: str, layer_name: str, settings: Settings,
                       open_options: dict[str, Any], offset: int = 0,
                       total_samples: int | None = None) -> LayerStats:
@@ -75,7 +79,7 @@ def connect(scheduler: Any = None, workers: int | None = None) -> Iterator[Any]:
             yield client
         return
     try:
-        client = distributed.Client(str(scheduler), timeout="20s")
+        client = distributed.Client(str(scheduler), timeout=CONNECT_TIMEOUT)
     except (OSError, TimeoutError) as exc:
         raise ActdocError(f"cannot reach the dask scheduler at {scheduler} ({exc})") from None
     with client:

@@ -109,3 +109,14 @@ def test_merged_shard_statistics_equal_the_one_shot_pass(sharded):
             varying = y.std(axis=0) > 0
             reference = scipy.stats.skew(y[:, varying], axis=0, bias=False)
             np.testing.assert_allclose(mine[varying], reference, rtol=1e-7)
+
+
+def test_an_unreachable_scheduler_is_one_sentence(sharded, monkeypatch):
+    from actdoc.analysis import distributed as module
+    from actdoc.errors import ActdocError
+
+    _, shards, _ = sharded
+    monkeypatch.setattr(module, "CONNECT_TIMEOUT", "1s")
+    with pytest.raises(ActdocError, match=r"^cannot reach the dask scheduler at "
+                                          r"tcp://127\.0\.0\.1:9 \("):
+        analyze_shards(shards, scheduler="tcp://127.0.0.1:9")
