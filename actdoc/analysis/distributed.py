@@ -122,6 +122,32 @@ def analyze_shards(
     return findings
 
 
+def analyze_target(
+    dump: str | Path,
+    settings: Settings | None = None,
+    *,
+    scheduler: Any = None,
+    progress: Callable[[float], None] | None = None,
+    activations: Sequence[str] = (),
+) -> Findings:
+    """What ``actdoc analyze DUMP [--scheduler ADDRESS]`` runs, in one call.
+
+    A single file without a scheduler goes to the local engine; a folder or glob of shards, or
+    any target with a scheduler ("local" for a LocalCluster), goes to ``analyze_shards``.
+    ``activations`` are the command line's ``--activation`` values.
+    """
+    from actdoc.analysis.engine import analyze
+    from actdoc.io import open_dump
+    from actdoc.io.shards import is_sharded
+
+    options = {"activations": list(activations)}
+    if scheduler is None and not is_sharded(dump):
+        with open_dump(dump, **options) as opened:
+            return analyze(opened, settings, progress=progress)
+    return analyze_shards(dump, settings, scheduler=scheduler, progress=progress,
+                          open_options=options)
+
+
 def file_sha256(path: str) -> str:
     """On a worker: the SHA-256 of one shard file, so hashing runs in parallel too."""
     from actdoc.io import file_sha256 as digest

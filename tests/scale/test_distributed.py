@@ -120,3 +120,13 @@ def test_an_unreachable_scheduler_is_one_sentence(sharded, monkeypatch):
     with pytest.raises(ActdocError, match=r"^cannot reach the dask scheduler at "
                                           r"tcp://127\.0\.0\.1:9 \("):
         analyze_shards(shards, scheduler="tcp://127.0.0.1:9")
+
+
+def test_the_command_line_entry_picks_the_local_engine_or_the_cluster(sharded, cluster, both):
+    from actdoc.analysis.distributed import analyze_target
+
+    whole, shards, _ = sharded
+    local, remote, _ = both
+    assert analyze_target(whole).findings == local.findings
+    on_cluster = analyze_target(str(shards / "part*.h5"), scheduler=cluster.scheduler_address)
+    assert on_cluster.findings == remote.findings and on_cluster.source == remote.source
