@@ -65,3 +65,23 @@ def test_threaded_measuring_gives_the_serial_findings(sharded, monkeypatch):
         for name, hist in theirs.histograms.items():
             np.testing.assert_array_equal(mine.histograms[name].counts, hist.counts)
         np.testing.assert_allclose(mine.unit_table["std"], theirs.unit_table["std"], rtol=1e-10)
+
+
+@pytest.mark.parametrize("compress", [False, True])
+def test_npz_members_split_only_where_they_can_be_read_from_anywhere(tmp_path, monkeypatch,
+                                                                     compress):
+    from actdoc.analysis import engine
+    from actdoc.io.writer import write_npz
+
+    from .conftest import recording
+
+    path = write_npz(tmp_path / "run.npz", recording(), compress=compress)
+    settings = Settings(block_observations=1024)
+    with open_dump(path) as dump:
+        serial = analyze(dump, settings, workers=1)
+        monkeypatch.setattr(engine, "TASK_BYTES", 100_000)
+        tasks = engine._tasks(dump, settings)
+        # A compressed member decompresses from its start: one task per layer, never ranges.
+        assert (len(tasks) == len(dump.layers)) == compress
+        threaded = analyze(dump, settings, workers=3)
+    assert threaded.findings == serial.findings
