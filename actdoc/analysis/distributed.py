@@ -26,7 +26,6 @@ from actdoc.analysis.stats import LayerStats, accumulate_layer
 from actdoc.errors import ActdocError
 from actdoc.model import Dump, Findings, Layer, SourceInfo
 
-
 #: How long to wait for a scheduler given by address before giving up with one sentence.
 CONNECT_TIMEOUT = "20s"
 
@@ -221,8 +220,9 @@ def _result(future, path: Path, layer: str) -> LayerStats:
 
 def _concatenated_dump(first: Dump, layout) -> Dump:
     """The dump the shards make together: the layout's layer descriptions (total samples) with
-    the first shard's parameter arrays (equal in every shard). Its activations are never read:
+    the first shard's parameter arrays (equal in every shard). It carries no activation arrays:
     their statistics come merged from the workers."""
-    layers = tuple(Layer(info=info, sources=layer.sources)
+    layers = tuple(Layer(info=info, sources={name: source for name, source in layer.sources.items()
+                                             if name in ("weight", "bias")})
                    for info, layer in zip(layout.layers, first.layers))
     return Dump(path=first.path, format=layout.format, layers=layers, samples=layout.samples)
