@@ -57,14 +57,18 @@ def is_sharded(spec: str | Path) -> bool:
 
 
 def find_shards(spec: str | Path | Sequence[str | Path]) -> list[Path]:
-    """The shard files a spec names: a folder, a glob pattern, or an explicit list of files."""
+    """The shard files a spec names: a folder or a glob pattern (in natural name order), or an
+    explicit list of files (in the order given). Hidden files in a folder are skipped."""
+    given_order = not isinstance(spec, (str, Path)) or not (
+        Path(spec).is_dir() or _has_glob(str(spec)))
     if not isinstance(spec, (str, Path)):
         paths = [Path(p) for p in spec]
         if not paths:
             raise UnreadableDump("the list of shard files is empty")
     elif Path(spec).is_dir():
         folder = Path(spec)
-        paths = [p for p in folder.iterdir() if p.is_file() and p.suffix.lower() in SHARD_SUFFIXES]
+        paths = [p for p in folder.iterdir() if p.is_file() and not p.name.startswith(".")
+                 and p.suffix.lower() in SHARD_SUFFIXES]
         if not paths:
             raise UnreadableDump(
                 f"{folder}: the folder holds no dump files "
@@ -78,7 +82,7 @@ def find_shards(spec: str | Path | Sequence[str | Path]) -> list[Path]:
     for path in paths:
         if not path.is_file():
             raise UnreadableDump(f"{path}: no such shard file")
-    return sorted(paths, key=lambda p: natural_key(p.name))
+    return paths if given_order else sorted(paths, key=lambda p: natural_key(p.name))
 
 
 def _parameter_digest(dump: Dump, layer_name: str) -> str:

@@ -80,3 +80,14 @@ def test_nothing_to_read(tmp_path):
         open_shards(tmp_path)
     with pytest.raises(UnreadableDump, match=r"no shard files match the pattern '.*nope\*\.h5'"):
         open_shards(str(tmp_path / "nope*.h5"))
+
+
+def test_an_explicit_list_keeps_its_order_and_hidden_files_are_skipped(sharded, tmp_path):
+    _, shards, _ = sharded
+    listed = [shards / "part18.h5", shards / "part2.h5"]
+    assert open_shards(listed) == listed
+    (tmp_path / "._part1.h5").write_bytes(b"resource fork")  # as some file copiers leave
+    with pytest.raises(UnreadableDump, match="the folder holds no dump files"):
+        open_shards(tmp_path)
+    with pytest.raises(UnreadableDump, match=r"nope\.h5: no such shard file"):
+        open_shards([tmp_path / "nope.h5"])
