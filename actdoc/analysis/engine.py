@@ -7,7 +7,6 @@ unit is named by at most one of dead, dormant, saturated, near_binary, linear_re
 
 from __future__ import annotations
 
-import hashlib
 import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
@@ -27,6 +26,7 @@ from actdoc.analysis.summary import (
     unit_table,
     weight_summary,
 )
+from actdoc.digest import file_sha256
 from actdoc.model import (
     Dump,
     Finding,
@@ -45,13 +45,7 @@ STATE_WIDTH = 16
 def source_info(dump: Dump) -> SourceInfo:
     """File name, SHA-256 of the file's bytes where it exists (else ""), format, samples."""
     path = Path(dump.path)
-    digest = ""
-    if path.is_file():
-        sha = hashlib.sha256()
-        with path.open("rb") as handle:
-            for chunk in iter(lambda: handle.read(1 << 20), b""):
-                sha.update(chunk)
-        digest = sha.hexdigest()
+    digest = file_sha256(path) if path.is_file() else ""
     return SourceInfo(file=path.name, sha256=digest, format=dump.format, samples=dump.samples)
 
 

@@ -10,10 +10,10 @@ override the declared or inferred kind of any dump.
 from __future__ import annotations
 
 import dataclasses
-import hashlib
 from pathlib import Path
 from typing import Any, Sequence
 
+from actdoc.digest import file_sha256
 from actdoc.errors import InvalidDump, UnreadableDump, UnsupportedFormat, describe
 from actdoc.io.base import RawDump, assemble, order_layers
 from actdoc.io.hdf5 import READER as HDF5_READER, find_signature
@@ -27,15 +27,6 @@ HEAD_BYTES = 16
 
 __all__ = ["open_dump", "file_sha256", "parse_activations", "READERS", "DEFAULT_MEMBER_LIMIT",
            "MemorySource", "dump_from_arrays"]
-
-
-def file_sha256(path: str | Path, block_bytes: int = 1 << 20) -> str:
-    """Hex SHA-256 of a file, read in blocks."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(block_bytes), b""):
-            digest.update(block)
-    return digest.hexdigest()
 
 
 def pick_reader(path: Path) -> Any:
