@@ -47,7 +47,8 @@ class ProgressBar:
 
 
 def _input_options(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("dump", help="the dump: HDF5 or NPZ file (layout in docs/dump-layout.md)")
+    parser.add_argument("dump", help="the dump: an HDF5 or NPZ file (docs/dump-layout.md), or a "
+                                     "folder or glob of shard files (docs/scale.md)")
     parser.add_argument(
         "--activation", action="append", default=[], metavar="KIND|LAYER=KIND",
         help="activation kind for weight archives: KIND for every layer but the last (which "
@@ -57,6 +58,12 @@ def _input_options(parser: argparse.ArgumentParser) -> None:
                         metavar="NAME=VALUE", help="override one threshold (see docs/checks.md)")
     parser.add_argument("--config", type=Path, metavar="TOML",
                         help="a TOML file of threshold overrides")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="measure on a dask.distributed cluster at ADDRESS, or 'local' for "
+                             "a cluster on this machine (needs the 'dask' extra)")
+    parser.add_argument("--workers", type=int, metavar="N",
+                        help="measuring threads of the local engine (default: the cores, "
+                             "at most 3)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -101,14 +108,16 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _analyse(args: argparse.Namespace, label: str, path: Path | None = None):
     """Open the dump, run the engine with a progress bar, return the Findings."""
-    from actdoc.analysis import analyze
     from actdoc.analysis.defaults import load_settings
-    from actdoc.io import open_dump
+    from actdoc.cluster import analyze_target
 
     settings = load_settings(args.config, args.overrides)
-    activations = getattr(args, "activation", ())
-    with open_dump(path or args.dump, activations=activations) as dump:
-        return analyze(dump, settings, progress=ProgressBar(label))
+    workers = getattr(args, "workers", None)
+    if workers is not None and workers < 1:
+        raise ActdocError(f"--workers must be at least 1, not {workers}")
+    return analyze_target(path or args.dump, settings, scheduler=getattr(args, "scheduler", None),
+                          progress=ProgressBar(label), activations=getattr(args, "activation", ()),
+                          workers=workers)
 
 
 def write_atomically(path: Path, text: str) -> None:

@@ -13,7 +13,7 @@ from actdoc.model import to_observations
 from .conftest import DEAD_UNITS, SATURATED_UNITS, SHARD_BOUNDS
 
 distributed = pytest.importorskip("distributed")
-from actdoc.analysis.distributed import analyze_shards  # noqa: E402
+from actdoc.cluster import analyze_shards  # noqa: E402
 
 
 @pytest.fixture(scope="module")
@@ -112,7 +112,7 @@ def test_merged_shard_statistics_equal_the_one_shot_pass(sharded):
 
 
 def test_an_unreachable_scheduler_is_one_sentence(sharded, monkeypatch):
-    from actdoc.analysis import distributed as module
+    from actdoc import cluster as module
     from actdoc.errors import ActdocError
 
     _, shards, _ = sharded
@@ -123,7 +123,7 @@ def test_an_unreachable_scheduler_is_one_sentence(sharded, monkeypatch):
 
 
 def test_the_command_line_entry_picks_the_local_engine_or_the_cluster(sharded, cluster, both):
-    from actdoc.analysis.distributed import analyze_target
+    from actdoc.cluster import analyze_target
 
     whole, shards, _ = sharded
     local, remote, _ = both

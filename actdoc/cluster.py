@@ -1,5 +1,8 @@
 """Analyse a sharded dump on a dask.distributed cluster.
 
+This module sits on top of the core, beside the command line: it opens dumps (``actdoc.io``)
+and measures them (``actdoc.analysis``), which the engine itself never does.
+
 Each task opens one shard by path on a worker, passes over one layer and sends back that
 layer's ``LayerStats`` (per-unit counts, moments, extremes and fixed-edge histograms: a few
 kilobytes per thousand units). The client merges them per layer in shard order and turns the
@@ -21,9 +24,12 @@ from pathlib import Path
 from typing import Any, Callable, Iterator, Sequence
 
 from actdoc.analysis.defaults import Settings
-from actdoc.analysis.engine import findings_from_stats
+from actdoc.analysis.engine import analyze, findings_from_stats
 from actdoc.analysis.stats import LayerStats, accumulate_layer
+from actdoc.digest import file_sha256 as digest
 from actdoc.errors import ActdocError
+from actdoc.io import open_dump
+from actdoc.io.shards import is_sharded, place_layer, shard_layout
 from actdoc.model import Dump, Findings, Layer, SourceInfo
 
 #: How long to wait for a scheduler given by address before giving up with one sentence.
@@ -38,8 +44,6 @@ def shard_layer_stats(path: str, layer_name: str, settings: Settings,
     The shard's samples are numbered from ``offset`` within a dump of ``total_samples``, as in
     the concatenated file, so the statistics equal that file's over the same samples.
     """
-    from actdoc.io import open_dump
-    from actdoc.io.shards import place_layer
 
     with open_dump(path, **open_options) as dump:
         layer = dump.layer(layer_name)
@@ -92,27 +96,31 @@ def analyze_shards(
     progress: Callable[[float], None] | None = None,
     open_options: dict[str, Any] | None = None,
 ) -> Findings:
-    """Findings for a sharded dump, computed on a dask cluster.
+    """Findings for a sharded dump: in this process, or on a dask cluster given ``scheduler``.
 
     ``paths`` is anything ``actdoc.io.shards.open_shards`` accepts (a folder, a glob pattern or
     a list of files); the shards are validated first. ``scheduler`` is a scheduler address
-    ("tcp://host:8786"), an existing Client, or None / "local" for a LocalCluster on this
-    machine. ``progress(fraction)`` is called as (shard, layer) tasks finish, weighted by the
+    ("tcp://host:8786"), an existing Client, "local" for a LocalCluster on this machine, or
+    None to measure the shards here one after another (no dask needed). ``progress(fraction)`` is called as (shard, layer) tasks finish, weighted by the
     values each covers. The findings' source names the shards (see ``sharded_source``).
     """
-    from actdoc.io import open_dump
-    from actdoc.io.shards import shard_layout
 
     settings = settings or Settings()
     open_options = dict(open_options or {})
     layout = shard_layout(paths, **open_options)
     if progress is not None:
         progress(0.0)
-    with connect(scheduler) as client:
-        digests = client.map(file_sha256, [str(Path(p).resolve()) for p in layout.paths],
-                             pure=False)
-        merged = _gather_merged(client, layout, settings, open_options, progress)
-        source = sharded_source(layout, client.gather(digests))
+    tasks = _shard_tasks(layout)
+    if scheduler is None:
+        merged = _merge(layout, _run_here(tasks, settings, open_options, progress))
+        source = sharded_source(layout, [digest(str(p)) for p in layout.paths])
+    else:
+        with connect(scheduler) as client:
+            digests = client.map(file_sha256, [str(Path(p).resolve()) for p in layout.paths],
+                                 pure=False)
+            merged = _merge(layout, _run_on_cluster(client, tasks, settings, open_options,
+                                                    progress))
+            source = sharded_source(layout, client.gather(digests))
     with open_dump(layout.paths[0], **open_options) as first:
         whole = _concatenated_dump(first, layout)
         findings = findings_from_stats(whole, merged, settings, source)
@@ -128,29 +136,26 @@ def analyze_target(
     scheduler: Any = None,
     progress: Callable[[float], None] | None = None,
     activations: Sequence[str] = (),
+    workers: int | None = None,
 ) -> Findings:
     """What ``actdoc analyze DUMP [--scheduler ADDRESS]`` runs, in one call.
 
     A single file without a scheduler goes to the local engine; a folder or glob of shards, or
     any target with a scheduler ("local" for a LocalCluster), goes to ``analyze_shards``.
-    ``activations`` are the command line's ``--activation`` values.
+    ``activations`` are the command line's ``--activation`` values; ``workers`` the local
+    engine's measuring threads.
     """
-    from actdoc.analysis.engine import analyze
-    from actdoc.io import open_dump
-    from actdoc.io.shards import is_sharded
 
     options = {"activations": list(activations)}
     if scheduler is None and not is_sharded(dump):
         with open_dump(dump, **options) as opened:
-            return analyze(opened, settings, progress=progress)
+            return analyze(opened, settings, progress=progress, workers=workers)
     return analyze_shards(dump, settings, scheduler=scheduler, progress=progress,
                           open_options=options)
 
 
 def file_sha256(path: str) -> str:
     """On a worker: the SHA-256 of one shard file, so hashing runs in parallel too."""
-    from actdoc.io import file_sha256 as digest
-
     return digest(path)
 
 
@@ -169,41 +174,64 @@ def sharded_source(layout, digests: Sequence[str]) -> SourceInfo:
                       format=layout.format, samples=layout.samples)
 
 
-def _gather_merged(client, layout, settings, open_options,
-                   progress) -> list[LayerStats | None]:
-    """Submit one task per (shard, layer); merge each layer's results in shard order.
-
-    Layers without activations (weights only) get None, as in the local engine.
-    """
-    import distributed
-
-    futures, weights = {}, {}
+def _shard_tasks(layout) -> list[tuple[tuple[int, int], Path, Any, int, int]]:
+    """One task per (shard, layer) with activations: key, shard path, layer info, the shard's
+    first sample in the joined dump, and the values it covers (to weigh progress)."""
+    tasks = []
     for layer_index, info in enumerate(layout.layers):
         if not any(info.has(array) for array in ("preact", "output")):
             continue
         offset = 0
         for shard_index, path in enumerate(layout.paths):
             samples = layout.layer_samples[shard_index][layer_index]
-            key = (shard_index, layer_index)
-            futures[key] = client.submit(
-                shard_layer_stats, str(Path(path).resolve()), info.name, settings, open_options,
-                offset, info.samples, pure=False)
-            weights[key] = max(1, info.units * info.positions * samples)
+            tasks.append(((shard_index, layer_index), Path(path).resolve(), info, offset,
+                          max(1, info.units * info.positions * samples)))
             offset += samples
-    owner = {future.key: key for key, future in futures.items()}
-    results: dict[tuple[int, int], LayerStats] = {}
-    total, done = float(sum(weights.values()) or 1), 0.0
-    for future in distributed.as_completed(list(futures.values())):
-        key = owner[future.key]
-        results[key] = _result(future, layout.paths[key[0]], layout.layers[key[1]].name)
-        done += weights[key]
-        if progress is not None:
-            progress(0.99 * done / total)
+    return tasks
+
+
+def _merge(layout, results: dict[tuple[int, int], LayerStats]) -> list[LayerStats | None]:
+    """Each layer's statistics merged in shard order; None for layers without activations."""
     merged: list[LayerStats | None] = []
     for index in range(len(layout.layers)):
         parts = [results[(s, index)] for s in range(len(layout.paths)) if (s, index) in results]
         merged.append(reduce(LayerStats.merge, parts) if parts else None)
     return merged
+
+
+def _run_here(tasks, settings, open_options, progress) -> dict[tuple[int, int], LayerStats]:
+    """The tasks one after another in this process (no scheduler given)."""
+    results = {}
+    total, done = float(sum(task[4] for task in tasks) or 1), 0.0
+    for key, path, info, offset, weight in tasks:
+        results[key] = shard_layer_stats(str(path), info.name, settings, open_options, offset,
+                                         info.samples)
+        done += weight
+        if progress is not None:
+            progress(0.99 * done / total)
+    return results
+
+
+def _run_on_cluster(client, tasks, settings, open_options,
+                    progress) -> dict[tuple[int, int], LayerStats]:
+    """The tasks on the cluster behind ``client``, collected as they finish."""
+    import distributed
+
+    futures = {key: client.submit(shard_layer_stats, str(path), info.name, settings,
+                                  open_options, offset, info.samples, pure=False)
+               for key, path, info, offset, _ in tasks}
+    weights = {key: weight for key, _, _, _, weight in tasks}
+    described = {key: (path, info.name) for key, path, info, _, _ in tasks}
+    owner = {future.key: key for key, future in futures.items()}
+    results: dict[tuple[int, int], LayerStats] = {}
+    total, done = float(sum(weights.values()) or 1), 0.0
+    for future in distributed.as_completed(list(futures.values())):
+        key = owner[future.key]
+        results[key] = _result(future, *described[key])
+        done += weights[key]
+        if progress is not None:
+            progress(0.99 * done / total)
+    return results
 
 
 def _result(future, path: Path, layer: str) -> LayerStats:
