@@ -201,8 +201,12 @@ def cmd_compare(args: argparse.Namespace) -> int:
 def cmd_serve(args: argparse.Namespace) -> int:
     from actdoc.web import serve
 
-    serve(host=args.host, port=args.port, workspace=args.workspace, demo=args.demo,
-          token=args.token)
+    try:
+        serve(host=args.host, port=args.port, workspace=args.workspace, demo=args.demo,
+              token=args.token)
+    except OSError as err:
+        raise ActdocError(f"cannot serve the dashboard on {args.host}:{args.port}: "
+                          f"{err.strerror or err}") from None
     return EXIT_OK
 
 

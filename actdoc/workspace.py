@@ -203,12 +203,16 @@ class Workspace:
     def __init__(self, root: str | Path, *, max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES):
         self.root = Path(root).expanduser()
         self.max_upload_bytes = max_upload_bytes
-        for sub in ("dumps", "findings", "tmp"):
-            (self.root / sub).mkdir(parents=True, exist_ok=True)
         self.catalog_path = self.root / "catalog.sqlite3"
-        with closing(self._connect()) as db, db:
-            db.execute("PRAGMA journal_mode=WAL")
-            db.execute(_SCHEMA)
+        try:
+            for sub in ("dumps", "findings", "tmp"):
+                (self.root / sub).mkdir(parents=True, exist_ok=True)
+            with closing(self._connect()) as db, db:
+                db.execute("PRAGMA journal_mode=WAL")
+                db.execute(_SCHEMA)
+        except (OSError, sqlite3.Error) as exc:
+            reason = getattr(exc, "strerror", None) or str(exc)
+            raise ActdocError(f"cannot use the workspace folder {self.root}: {reason}") from None
         self._findings_cache: dict[str, Findings] = {}
         self._cache_lock = threading.Lock()
 

@@ -146,3 +146,23 @@ def test_compare_refuses_different_models(capsys, tmp_path):
     b = _write(tmp_path / "b.h5", units=6)
     status, _, err = run(capsys, "compare", str(a), str(b))
     assert status == 2 and "cannot be compared" in err and err.count("\n") == 1
+
+
+def test_serve_on_a_taken_port_is_one_line(capsys, tmp_path):
+    import socket
+
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen()
+        port = taken.getsockname()[1]
+        status, _, err = run(capsys, "serve", "--port", str(port), "--workspace",
+                             str(tmp_path / "ws"))
+    assert status == 2 and "cannot serve the dashboard" in err and err.count("\n") == 1
+
+
+def test_serve_with_an_unusable_workspace_is_one_line(capsys, tmp_path):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    status, _, err = run(capsys, "serve", "--workspace", str(blocker / "ws"), "--port", "0")
+    assert status == 2 and "cannot use the workspace folder" in err and err.count("\n") == 1
+    assert blocker.read_text() == "not a folder"
