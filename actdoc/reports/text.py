@@ -39,8 +39,8 @@ def render_text(findings: Findings) -> str:
         lines.append("No check flagged anything on this probe batch.")
     wrap = textwrap.TextWrapper(width=WIDTH, initial_indent="      ", subsequent_indent="      ")
     for finding in ordered_findings(findings):
-        lines.append(f"  {finding.severity.value.upper():<8} {finding.layer} / {finding.check}: "
-                     f"{finding.summary}")
+        lines.append(f"  {finding.severity.value.upper():<8} {finding.layer} / {finding.check}")
+        lines.extend(wrap.wrap(finding.summary))
         if finding.units:
             lines.extend(wrap.wrap(f"units: {unit_list(finding.units)}"))
         lines.extend(wrap.wrap(f"cause: {finding.cause}"))
