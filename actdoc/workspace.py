@@ -126,11 +126,28 @@ class DumpRecord:
         }
 
 
+#: Longest stored file name in UTF-8 bytes: under the 255-byte limit of a path component on
+#: common Linux file systems (NAME_MAX), so a long unicode name cannot fail the upload.
+MAX_NAME_BYTES = 200
+
+
+def _clip_utf8(text: str, max_bytes: int) -> str:
+    """``text`` cut to at most ``max_bytes`` in UTF-8, never inside a character."""
+    return text.encode("utf-8")[:max_bytes].decode("utf-8", errors="ignore")
+
+
 def safe_file_name(name: str | None) -> str:
-    """The last path part of an uploaded name, without control or path characters."""
+    """The last path part of an uploaded name, without control or path characters, at most
+    MAX_NAME_BYTES long in UTF-8 (a long name loses the end of its stem, not its ending)."""
     base = re.split(r"[\\/]", name or "")[-1]
     base = re.sub(r"[\x00-\x1f\x7f]", "", base).strip().lstrip(".")
-    return base[:200] or "upload"
+    if len(base.encode("utf-8")) > MAX_NAME_BYTES:
+        stem, dot, ending = base.rpartition(".")
+        ending = _clip_utf8(ending, 16) if dot and stem else ""
+        stem = stem if ending else base
+        base = _clip_utf8(stem, MAX_NAME_BYTES - len(ending.encode("utf-8")) - 1) + (
+            "." + ending if ending else "")
+    return base or "upload"
 
 
 class UploadSpool:
@@ -149,7 +166,11 @@ class UploadSpool:
         self.max_bytes = max_bytes
         self.size = 0
         self._hash = hashlib.sha256()
-        self._file = open(self.path, "wb")
+        try:
+            self._file = open(self.path, "wb")
+        except OSError:
+            shutil.rmtree(self.folder, ignore_errors=True)
+            raise
 
     def write(self, data: bytes) -> int:
         self.size += len(data)

@@ -1,0 +1,35 @@
+"""Uploads that try the edges of the store: names the file system refuses, and the same bytes
+arriving twice at once. Nothing stored may be lost and nothing half-written may stay behind."""
+
+from __future__ import annotations
+
+from actdoc import workspace as workspace_module
+from actdoc.workspace import Workspace
+from conftest import post_file
+
+#: Linux file systems (ext4, tmpfs, xfs) cap one path component at 255 bytes (common practice:
+#: NAME_MAX in <limits.h>); a CJK character takes 3 bytes in UTF-8.
+NAME_MAX_BYTES = 255
+
+
+def test_a_long_unicode_file_name_is_shortened_not_a_server_error(client, workspace,
+                                                                  planted_dump):
+    long_name = "漢" * 200 + ".h5"  # 603 bytes in UTF-8
+    response = post_file(client, planted_dump, name=long_name)
+    assert response.status_code == 201, response.get_json()
+    stored = response.get_json()["name"]
+    assert stored.endswith(".h5") and stored.startswith("漢")
+    assert len(stored.encode("utf-8")) <= NAME_MAX_BYTES
+    assert workspace.dump_path(workspace.get(response.get_json()["id"])).is_file()
+    assert not list((workspace.root / "tmp").glob("upload-*"))  # the worker may be busy
+
+
+def test_names_with_nul_dots_and_separators_stay_inside_the_workspace(tmp_path):
+    store = Workspace(tmp_path / "ws")
+    for name in ("a\x00b.h5", "..", "../..", "C:\\x\\..\\y.h5", "/", "\x7f"):
+        spool = store.begin_upload(name)
+        assert spool.path.parent == spool.folder
+        assert spool.folder.parent == store.root / "tmp"
+        assert "\x00" not in spool.name and "/" not in spool.name
+        assert spool.name not in ("", ".", "..")
+        spool.discard()
