@@ -236,6 +236,8 @@ class Workspace:
             raise ActdocError(f"cannot use the workspace folder {self.root}: {reason}") from None
         self._findings_cache: dict[str, Findings] = {}
         self._cache_lock = threading.Lock()
+        #: Held while an upload moves into ``dumps/`` and enters the catalog.
+        self._store_lock = threading.Lock()
 
     def _connect(self) -> sqlite3.Connection:
         db = sqlite3.connect(self.catalog_path, timeout=30)
@@ -304,28 +306,31 @@ class Workspace:
                 return existing, False
             with _open_dump(spool.path) as dump:
                 dump_format, layers, samples = dump.format, len(dump.layers), dump.samples
-            target = self.root / "dumps" / sha256
-            if target.exists():  # left by an interrupted earlier attempt: replace it
-                shutil.rmtree(target)
-            os.replace(spool.folder, target)
+            record = DumpRecord(
+                id=sha256[:16], name=spool.name, sha256=sha256, size=spool.size,
+                format=dump_format, status="queued", progress=0.0, error=None,
+                created=time.time(), layers=layers, samples=samples, critical=None,
+                warning=None, healthy=None)
+            # The readers' check above may take long; the same bytes may have landed meanwhile.
+            # Store and insert under one lock, so a second upload never replaces a stored file.
+            with self._store_lock:
+                existing = self._find_sha(sha256)
+                if existing is not None:
+                    return existing, False
+                target = self.root / "dumps" / sha256
+                if target.exists():  # left by an interrupted earlier attempt: replace it
+                    shutil.rmtree(target)
+                os.replace(spool.folder, target)
+                self._insert(record)
         finally:
             spool.discard()
-        record = DumpRecord(
-            id=sha256[:16], name=spool.name, sha256=sha256, size=spool.size,
-            format=dump_format, status="queued", progress=0.0, error=None, created=time.time(),
-            layers=layers, samples=samples, critical=None, warning=None, healthy=None)
-        try:
-            with closing(self._connect()) as db, db:
-                fields = record.__dict__
-                db.execute(
-                    f"INSERT INTO dumps ({', '.join(fields)}) "
-                    f"VALUES ({', '.join('?' for _ in fields)})", tuple(fields.values()))
-        except sqlite3.IntegrityError:  # the same bytes arrived twice at once
-            existing = self._find_sha(sha256)
-            if existing is not None:
-                return existing, False
-            raise
         return record, True
+
+    def _insert(self, record: DumpRecord) -> None:
+        with closing(self._connect()) as db, db:
+            fields = record.__dict__
+            db.execute(f"INSERT INTO dumps ({', '.join(fields)}) "
+                       f"VALUES ({', '.join('?' for _ in fields)})", tuple(fields.values()))
 
     # ------------------------------------------------------------------ analysis
     def pending(self) -> list[str]:

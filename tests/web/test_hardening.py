@@ -33,3 +33,28 @@ def test_names_with_nul_dots_and_separators_stay_inside_the_workspace(tmp_path):
         assert "\x00" not in spool.name and "/" not in spool.name
         assert spool.name not in ("", ".", "..")
         spool.discard()
+
+
+def test_the_same_bytes_uploaded_twice_at_once_keep_the_stored_file(tmp_path, planted_dump,
+                                                                     monkeypatch):
+    """Upload B passes the readers while upload A of the same bytes is stored in full: A's file
+    must survive B (B's answer is A's dump)."""
+    store = Workspace(tmp_path / "ws")
+    data = planted_dump.read_bytes()
+    first, second = store.begin_upload("first.h5"), store.begin_upload("second.h5")
+    for spool in (first, second):
+        spool.write(data)
+    real_open = workspace_module._open_dump
+    stored = {}
+
+    def open_while_the_other_upload_lands(path):
+        if path == second.path and not stored:
+            stored["record"], _ = store.adopt(first)
+        return real_open(path)
+
+    monkeypatch.setattr(workspace_module, "_open_dump", open_while_the_other_upload_lands)
+    record, created = store.adopt(second)
+    assert not created and record == stored["record"] and record.name == "first.h5"
+    assert store.dump_path(record).read_bytes() == data
+    assert [r.id for r in store.list()] == [record.id]
+    assert list((store.root / "tmp").iterdir()) == []
