@@ -154,7 +154,8 @@ def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
     trace = {"type": "bar", "name": name, "x": (edges[:-1] + edges[1:]) / 2, "y": heights,
              "width": widths, "customdata": counts, "marker": {"color": colour},
              "hovertemplate": "%{x:.3g}: %{customdata} observations<extra></extra>"}
-    return trace, ("observations per unit" if uneven else "observations")
+    # Not "per unit": on these pages a unit is a neuron.
+    return trace, ("observations ÷ bin width" if uneven else "observations")
 
 
 def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str,
@@ -185,8 +186,10 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
     if reach is not None:
         low, high = min(low, -1.5 * reach), max(high, 1.5 * reach)  # room for the zone label
     curve = curve_trace(info, low, high)
+    # tickmode "auto": plotly.js would otherwise sync these ticks to the left axis' grid,
+    # which lands them on values like 1.67 and 3.87.
     curve_axis = {"overlaying": "y", "side": "right", "showgrid": False,
-                  "title": {"text": "output f(z)"}, "nticks": 6}
+                  "title": {"text": "output f(z)"}, "nticks": 6, "tickmode": "auto"}
     if curve is not None:
         traces.append(curve)
         y_low, y_high = float(np.min(curve["y"])), float(np.max(curve["y"]))

@@ -1,0 +1,29 @@
+"""What a reader sees: axis titles that say what a bar measures, and panels that explain why
+they are empty. Checked on the JSON twins and the pages of dumps written with actdoc's writer."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+
+def test_uneven_bins_are_labelled_as_a_density_not_per_unit(client, ready_dump):
+    # On this dashboard a "unit" is a neuron: "observations per unit" reads as a per-neuron count
+    # although the bars are counts divided by bin width (density; common practice for histograms
+    # of unequal bins, as numpy.histogram(density=...) documents).
+    figures = client.get(f"/dumps/{ready_dump}/layers/0?format=json").get_json()["figures"]
+    for name in ("inputs", "outputs"):
+        title = figures[name]["layout"]["yaxis"]["title"]["text"]
+        assert "per unit" not in title and "bin width" in title, (name, title)
+        bars = figures[name]["data"][0]
+        edges_width = np.asarray(bars["width"], dtype=float)
+        counts = np.asarray(bars["customdata"], dtype=float)
+        assert np.allclose(np.asarray(bars["y"], dtype=float), counts / edges_width)
+
+
+def test_curve_axis_gets_its_own_round_ticks(client, ready_dump):
+    # plotly.js syncs an overlaying axis' ticks to the main axis' grid by default, which gives
+    # ticks like 1.67, 3.87, 6.07 (seen in a screenshot); "auto" lets it pick round steps.
+    layout = client.get(f"/dumps/{ready_dump}/layers/0?format=json").get_json()[
+        "figures"]["inputs"]["layout"]
+    assert layout["yaxis2"]["tickmode"] == "auto"
