@@ -10,7 +10,7 @@ from flask import Flask, Request, current_app, g, request
 from werkzeug.exceptions import Forbidden, Unauthorized
 
 import actdoc
-from actdoc.web import api, assets, errors, pages
+from actdoc.web import api, assets, errors, pages, views
 from actdoc.web.worker import AnalysisWorker
 from actdoc.web.embed import embed_json, first_sentence, number, percent
 from actdoc.workspace import (
@@ -81,7 +81,8 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
 
     app.jinja_env.filters.update(embed_json=embed_json, first_sentence=first_sentence,
                                   number=number, percent=percent)
-    app.jinja_env.globals.update(app_version=actdoc.__version__)
+    app.jinja_env.globals.update(app_version=actdoc.__version__,
+                                 weights_only_note=views.WEIGHTS_ONLY_NOTE)
     app.before_request(guard)
     app.after_request(remember_token)
     app.teardown_request(discard_unused_spools)

@@ -33,6 +33,10 @@ MAX_UNITS_PER_PAGE = 500
 UNIT_BINS = 60
 #: Incoming weights listed in a unit's JSON (the histogram always uses all of them).
 MAX_LISTED_WEIGHTS = 4096
+#: Shown where a layer's dump entry holds only parameters: nothing about its units was measured.
+WEIGHTS_ONLY_NOTE = ("The dump holds no recorded total inputs or outputs for this layer, only "
+                     "its parameters: its units were not measured on the probe batch, so only "
+                     "the checks of its incoming weights apply.")
 #: The unit roster's measures per kind, after "unit" and "state": the ones that tell the
 #: kind's failure modes apart, so the table fits a 1280 px window. The unit card shows all.
 ROSTER_COLUMNS = {
@@ -245,5 +249,5 @@ def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) 
             entry["unit_measure"] = plain(finding.unit_measures[finding.units.index(unit)])
         entry.pop("units", None)
     return {"layer": layer_summary(report), "unit": unit, "row": row,
-            "state": state, "nonfinite": nonfinite, "weights": weights,
+            "state": state, "measured": info.has("preact") or info.has("output"), "nonfinite": nonfinite, "weights": weights,
             "findings": entries, "figures": charts, "caveat": findings.caveat or CAVEAT}

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from actdoc.io.writer import write_dump
+from conftest import post_file, wait_until_done
 
 
 def test_uneven_bins_are_labelled_as_a_density_not_per_unit(client, ready_dump):
@@ -27,3 +29,19 @@ def test_curve_axis_gets_its_own_round_ticks(client, ready_dump):
     layout = client.get(f"/dumps/{ready_dump}/layers/0?format=json").get_json()[
         "figures"]["inputs"]["layout"]
     assert layout["yaxis2"]["tickmode"] == "auto"
+
+
+def test_a_layer_with_weights_only_says_its_units_were_not_measured(client, tmp_path):
+    rng = np.random.default_rng(3)
+    z = rng.normal(size=(64, 5)).astype(np.float32)
+    path = write_dump(tmp_path / "weights_only.h5", {
+        "hidden": {"activation": "relu", "preact": z, "output": np.maximum(z, 0)},
+        "head": {"activation": "tanh", "weight": rng.normal(size=(3, 5)).astype(np.float32)}})
+    dump_id = post_file(client, path).get_json()["id"]
+    assert wait_until_done(client, dump_id)["status"] == "ready"
+    unit_page = client.get(f"/dumps/{dump_id}/layers/1/units/0").get_data(as_text=True)
+    assert "no finding" not in unit_page
+    assert "not measured" in unit_page
+    assert "holds no recorded total inputs or outputs" in unit_page
+    layer_page = client.get(f"/dumps/{dump_id}/layers/1").get_data(as_text=True)
+    assert "holds no recorded total inputs or outputs" in layer_page
