@@ -158,15 +158,29 @@ def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
     return trace, ("observations ÷ bin width" if uneven else "observations")
 
 
+#: A bar this many times the next tallest makes a histogram's count axis logarithmic.
+SPIKE_RATIO = 20.0
+
+
+def count_axis(heights: np.ndarray, label: str) -> dict[str, Any]:
+    """The y axis of a histogram: logarithmic when one spike (rectified outputs at exactly 0)
+    would flatten every other bar on a linear axis."""
+    filled = np.asarray(heights, dtype=float)
+    filled = filled[np.isfinite(filled) & (filled > 0)]
+    tallest = np.sort(filled)[-2:]
+    if filled.size > 2 and tallest[1] > SPIKE_RATIO * tallest[0]:
+        return {"type": "log", "title": {"text": f"{label} (log scale)"}}
+    return {"title": {"text": label}}
+
+
 def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str,
                      x_label: str, y_label: str | None = None) -> dict[str, Any]:
     """A plain histogram (outputs, biases, weights) over the range that holds data."""
     trace, bars_label = histogram_bars(edges, counts, x_label)
-    y_label = y_label or bars_label
     return {"data": [trace], "layout": base_layout(
         title, bargap=0, showlegend=False,
         xaxis={"title": {"text": x_label}, "range": list(occupied_range(edges, counts))},
-        yaxis={"title": {"text": y_label}})}
+        yaxis=count_axis(trace["y"], y_label or bars_label))}
 
 
 def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,

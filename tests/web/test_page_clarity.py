@@ -45,3 +45,17 @@ def test_a_layer_with_weights_only_says_its_units_were_not_measured(client, tmp_
     assert "holds no recorded total inputs or outputs" in unit_page
     layer_page = client.get(f"/dumps/{dump_id}/layers/1").get_data(as_text=True)
     assert "holds no recorded total inputs or outputs" in layer_page
+
+
+def test_a_spike_at_zero_does_not_flatten_the_rest_of_the_outputs(client, ready_dump):
+    # ReLU outputs max(0, z) put every negative input at exactly 0 (common practice); in the
+    # planted layer that is most observations, in one narrow bin. On a linear axis the other
+    # bars shrink to nothing (seen in a screenshot), so the axis turns logarithmic.
+    layout = client.get(f"/dumps/{ready_dump}/layers/0?format=json").get_json()[
+        "figures"]["outputs"]["layout"]
+    assert layout["yaxis"]["type"] == "log"
+    assert "log" in layout["yaxis"]["title"]["text"]
+    # The planted logistic layer has no such spike: its axis stays linear.
+    other = client.get(f"/dumps/{ready_dump}/layers/1?format=json").get_json()[
+        "figures"]["outputs"]["layout"]
+    assert other["yaxis"].get("type", "linear") == "linear"
