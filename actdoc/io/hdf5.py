@@ -101,6 +101,9 @@ def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
         raise UnreadableDump(f"{where}: cannot be opened ({exc})") from None
     if not isinstance(obj, h5py.Dataset):
         raise InvalidDump(f"{where}: expected a dataset, found a group")
+    if obj.shape is None:
+        raise InvalidDump(f"{where}: has no shape (an empty dataspace, as h5py.Empty writes); "
+                          f"expected an array")
     if Path(obj.file.filename).resolve() != Path(group.file.filename).resolve():
         raise UnsafeDump(f"{where}: a link leads to another file; a dump must be self-contained")
     if obj.is_virtual:
