@@ -145,8 +145,9 @@ def check_attributes(raw: RawDump, layer: RawLayer) -> dict[str, float]:
             continue
         value = layer.attrs[name]
         try:
-            number = float(np.asarray(value).reshape(()))
-        except (TypeError, ValueError):
+            flag = np.asarray(value).dtype == bool
+            number = float("nan") if flag else float(np.asarray(value).reshape(()))
+        except (TypeError, ValueError, OverflowError):
             number = float("nan")
         if not np.isfinite(number) or (name == "order" and number != int(number)):
             raise InvalidDump(
