@@ -15,7 +15,7 @@ from typing import Any, Sequence
 
 from actdoc.digest import file_sha256
 from actdoc.errors import InvalidDump, UnreadableDump, UnsupportedFormat, describe
-from actdoc.io.base import RawDump, assemble, order_layers
+from actdoc.io.base import RawDump, assemble, check_attributes, order_layers
 from actdoc.io.hdf5 import READER as HDF5_READER, find_signature
 from actdoc.io.memory import MemorySource, dump_from_arrays
 from actdoc.io.npz import DEFAULT_MEMBER_LIMIT, READER as NPZ_READER
@@ -36,6 +36,8 @@ def pick_reader(path: Path) -> Any:
         raise UnreadableDump(f"{where}: no such file")
     if path.is_dir():
         raise UnreadableDump(f"{where}: is a folder, not a dump file")
+    if not path.is_file():  # a FIFO or device would block or stream forever on read
+        raise UnreadableDump(f"{where}: is not a regular file; a dump must be a file on disk")
     try:
         with open(path, "rb") as handle:
             head = handle.read(HEAD_BYTES)
@@ -83,6 +85,8 @@ def apply_activations(raw: RawDump, specs: Sequence[str]) -> RawDump:
     if unknown:
         raise InvalidDump(f"{describe(raw.path, unknown[0])}: --activation names a layer the dump "
                           f"does not hold; its layers are {', '.join(names)}")
+    for layer in raw.layers:  # ordering reads the 'order' attributes: refuse bad ones first
+        check_attributes(raw, layer)
     ordered = [layer.name for layer in order_layers(raw)]
     chosen = {name: default for name in ordered[:-1]} if default is not None else {}
     chosen.update(per_layer)
