@@ -8,7 +8,8 @@ from flask import Blueprint, Response, current_app, jsonify, request, url_for
 from werkzeug.exceptions import BadRequest, NotFound
 
 from actdoc.reports import MEDIA_TYPES, render
-from actdoc.workspace import DumpRecord, UploadSpool
+from actdoc.uploads import UploadSpool
+from actdoc.workspace import DumpRecord
 
 blueprint = Blueprint("api", __name__, url_prefix="/api")
 

@@ -13,12 +13,8 @@ import actdoc
 from actdoc.web import api, assets, errors, pages, views
 from actdoc.web.worker import AnalysisWorker
 from actdoc.web.embed import embed_json, first_sentence, number, percent
-from actdoc.workspace import (
-    DEFAULT_MAX_UPLOAD_BYTES,
-    UploadSpool,
-    Workspace,
-    default_workspace_dir,
-)
+from actdoc.uploads import UploadSpool
+from actdoc.workspace import DEFAULT_MAX_UPLOAD_BYTES, Workspace, default_workspace_dir
 
 #: Cookie that carries the access token after a visit to ``/?token=...`` (browsers cannot set
 #: an Authorization header on a plain page load).

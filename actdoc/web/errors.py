@@ -14,7 +14,8 @@ from flask import Flask, jsonify, make_response, render_template, request
 from werkzeug.exceptions import HTTPException
 
 from actdoc.errors import ActdocError, DumpTooLarge, IncomparableDumps, UnsupportedFormat
-from actdoc.workspace import NotReady, UnknownDump, UploadTooLarge
+from actdoc.uploads import UploadTooLarge
+from actdoc.workspace import NotReady, UnknownDump
 
 log = logging.getLogger(__name__)
 

@@ -1,0 +1,104 @@
+"""Receiving an uploaded file: a safe stored name, and a spool that hashes and counts it as it
+streams into the workspace's ``tmp/`` folder. No Flask here: werkzeug writes into the spool as a
+plain file object.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+import shutil
+import tempfile
+from pathlib import Path
+
+from actdoc.errors import ActdocError
+
+
+class UploadTooLarge(ActdocError):
+    """An upload passed the workspace's size limit."""
+
+
+#: Longest stored file name in UTF-8 bytes: under the 255-byte limit of a path component on
+#: common Linux file systems (NAME_MAX), so a long unicode name cannot fail the upload.
+MAX_NAME_BYTES = 200
+
+
+def _clip_utf8(text: str, max_bytes: int) -> str:
+    """``text`` cut to at most ``max_bytes`` in UTF-8, never inside a character."""
+    return text.encode("utf-8")[:max_bytes].decode("utf-8", errors="ignore")
+
+
+def safe_file_name(name: str | None) -> str:
+    """The last path part of an uploaded name, without control or path characters, at most
+    MAX_NAME_BYTES long in UTF-8 (a long name loses the end of its stem, not its ending)."""
+    base = re.split(r"[\\/]", name or "")[-1]
+    base = re.sub(r"[\x00-\x1f\x7f]", "", base).strip().lstrip(".")
+    if len(base.encode("utf-8")) > MAX_NAME_BYTES:
+        stem, dot, ending = base.rpartition(".")
+        ending = _clip_utf8(ending, 16) if dot and stem else ""
+        stem = stem if ending else base
+        base = _clip_utf8(stem, MAX_NAME_BYTES - len(ending.encode("utf-8")) - 1) + (
+            "." + ending if ending else "")
+    return base or "upload"
+
+
+class UploadSpool:
+    """A file being received: written to ``tmp/``, hashed and counted as it streams.
+
+    It is a writable file object (werkzeug's multipart parser can write straight into it), so an
+    upload is stored once, never buffered whole in memory. Too many bytes raise UploadTooLarge.
+    The file type is left to the readers (``adopt``): they know HDF5 user blocks and zip
+    variants, and their refusal (UnsupportedFormat) names the file.
+    """
+
+    def __init__(self, folder: Path, file_name: str, max_bytes: int):
+        self.folder = Path(tempfile.mkdtemp(prefix="upload-", dir=folder))
+        self.name = safe_file_name(file_name)
+        self.path = self.folder / self.name
+        self.max_bytes = max_bytes
+        self.size = 0
+        self._hash = hashlib.sha256()
+        try:
+            self._file = open(self.path, "wb")
+        except OSError:
+            shutil.rmtree(self.folder, ignore_errors=True)
+            raise
+
+    def write(self, data: bytes) -> int:
+        self.size += len(data)
+        if self.size > self.max_bytes:
+            self.discard()
+            raise UploadTooLarge(
+                f"{self.name}: the upload passes the workspace limit of "
+                f"{self.max_bytes / 1024**2:.0f} MiB")
+        self._hash.update(data)
+        self._file.write(data)
+        return len(data)
+
+    def finish(self) -> str:
+        """Close the file and return its SHA-256."""
+        self._file.close()
+        return self._hash.hexdigest()
+
+    def discard(self) -> None:
+        if not self._file.closed:
+            self._file.close()
+        shutil.rmtree(self.folder, ignore_errors=True)
+
+    # werkzeug rewinds and may read back the stream it wrote; keep those working.
+    def seek(self, offset: int, whence: int = 0) -> int:
+        return 0 if self._file.closed else self._file.seek(offset, whence)
+
+    def tell(self) -> int:
+        return self.size
+
+    def flush(self) -> None:
+        if not self._file.closed:
+            self._file.flush()
+
+    def read(self, size: int = -1) -> bytes:
+        return b""
+
+    def close(self) -> None:
+        if not self._file.closed:
+            self._file.close()
