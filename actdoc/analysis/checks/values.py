@@ -34,6 +34,7 @@ def constant(unit: UnitInput) -> UnitVerdict:
         magnitude = np.fmax(1.0, np.fmax(np.abs(stats.minimum), np.abs(stats.maximum)))
     tolerance = unit.settings.constant_tolerance
     n = stats.moments.count
-    return UnitVerdict(mask=(n > 0) & (spread <= tolerance * magnitude),
+    # one observation has a zero range by construction: variation needs two
+    return UnitVerdict(mask=(n >= 2) & (spread <= tolerance * magnitude),
                        values=np.where(n > 0, spread, np.nan), threshold=tolerance,
                        phrase="give the same output on every observation", aggregate="max")
