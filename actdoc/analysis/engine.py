@@ -244,6 +244,7 @@ def analyze(dump: Dump, settings: Settings | None = None,
     return findings
 
 
+@np.errstate(over="ignore", invalid="ignore")  # infinite moments of huge finite values
 def findings_from_stats(dump: Dump, measured: list[LayerStats | None], settings: Settings,
                         source: SourceInfo | None = None) -> Findings:
     """Findings from per-layer statistics already measured (one entry per layer of ``dump``,

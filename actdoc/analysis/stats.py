@@ -73,6 +73,7 @@ class LayerStats:
         """Finite observations per unit (int64)."""
         return self.moments.count.astype(np.int64)
 
+    @np.errstate(over="ignore", invalid="ignore")
     def merge(self, other: "LayerStats") -> "LayerStats":
         """Statistics of both sets of observations (same layer, disjoint observations)."""
         if (other.name, other.neuron, other.units) != (self.name, self.neuron, self.units):
@@ -219,7 +220,8 @@ class _Accumulator:
         high = np.maximum.reduce(y, axis=0)
         clean = np.isfinite(low).all() and np.isfinite(high).all()
         if z is not None and clean:
-            clean = bool(np.isfinite(np.add.reduce(z, axis=None)))
+            with np.errstate(over="ignore", invalid="ignore"):  # finite values may sum past max
+                clean = bool(np.isfinite(np.add.reduce(z, axis=None)))
         valid = None
         x, scratch = self.x[:rows], self.scratch[:rows]
         if clean:
@@ -332,6 +334,9 @@ def _read_ahead(blocks: Iterator[tuple], depth: int) -> Iterator[tuple]:
                 worker.join(0.05)
 
 
+#: Finite values beyond about 1e154 square past the float64 range: their moments become
+#: infinite (written as null) instead of warning on stderr once per slice.
+@np.errstate(over="ignore", invalid="ignore")
 def accumulate_layer(
     layer: Layer,
     settings: Settings | None = None,

@@ -64,7 +64,10 @@ def output_scale(stats: LayerStats | None) -> float | None:
     n = float(m.count.sum())
     if n == 0:
         return None
-    return math.sqrt(max(0.0, float(m.total_squares.sum()) / n))
+    squares = float(m.total_squares.sum())
+    if not math.isfinite(squares):  # finite outputs whose squares overflow (inf - inf: NaN)
+        return math.inf
+    return math.sqrt(max(0.0, squares / n))
 
 
 def gradient_gain(stats: LayerStats | None) -> float | None:

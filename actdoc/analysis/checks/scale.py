@@ -17,8 +17,9 @@ def _signal(layer: LayerInput, limit: float, shrinking: bool) -> LayerVerdict | 
     """The layer's output RMS against the first measured layer's, if past ``limit``."""
     if layer.output_scale is None or not layer.reference_scale:
         return None
-    if layer.reference_name == layer.info.name or not math.isfinite(layer.output_scale):
+    if layer.reference_name == layer.info.name or math.isnan(layer.output_scale):
         return None
+    # an infinite RMS (finite outputs whose squares overflow) is past any limit upwards
     ratio = layer.output_scale / layer.reference_scale
     if (ratio >= limit) if shrinking else (ratio <= limit):
         return None
