@@ -244,6 +244,10 @@ def assemble(raw: RawDump) -> Dump:
         raise InvalidDump(f"{describe(raw.path)}: the dump holds no layers")
     check_probe_input(raw)
     for stored in raw.layers:
+        if not stored.name.strip():
+            arrays = ", ".join(sorted(stored.arrays)) or "no arrays"
+            raise InvalidDump(f"{describe(raw.path)}: a layer has an empty name (it holds "
+                              f"{arrays}); name every layer")
         check_attributes(raw, stored)
     layers = []
     for index, stored in enumerate(order_layers(raw)):

@@ -81,6 +81,13 @@ class HDF5Source:
             raise self._failed(exc) from None
 
 
+#: Datasets declaring more bytes than this are checked for unwritten storage.
+UNWRITTEN_CHECK_BYTES = 64 << 20
+#: Deflate, the one compression filter h5py always has, packs at most about 1032:1 (an all-zero
+#: dead layer), so a dataset that stores less than 1/1100 of its declared size was never written.
+MAX_STORED_RATIO = 1100
+
+
 def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
                     array: str) -> h5py.Dataset | None:
     """The dataset ``group[name]`` after the self-containment checks, or None if it is absent.
@@ -112,6 +119,12 @@ def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
     if obj.id.get_create_plist().get_external_count() > 0:
         raise UnsafeDump(f"{where}: keeps its data in external raw files; a dump must be "
                          f"self-contained")
+    declared = int(np.prod(obj.shape, dtype=np.float64)) * obj.dtype.itemsize
+    if declared > UNWRITTEN_CHECK_BYTES and obj.id.get_storage_size() * MAX_STORED_RATIO < declared:
+        raise InvalidDump(
+            f"{where}: declares {declared / 2**30:.1f} GiB but stores only "
+            f"{obj.id.get_storage_size()} bytes: most of it was never written, and reading it "
+            f"would analyse fill values")
     return obj
 
 

@@ -102,3 +102,56 @@ def test_bad_order_with_activation_option_is_one_sentence(tmp_path, capsys, orde
     with pytest.raises(errors.InvalidDump, match=r"layer 'a': attribute 'order'"):
         open_dump(path, activations=["relu"])
     one_line_status_two(capsys, "analyze", str(path), "--activation", "relu")
+
+
+def test_a_huge_declared_but_unwritten_hdf5_dataset_is_refused_quickly(tmp_path):
+    # A chunked dataset declared at 10^12 x 10^6 float32 with nothing written would make a pass
+    # read fill values for ever; deflate packs at most ~1032:1 (zlib's documented limit), so
+    # storage this far below the declared size means the data was never written.
+    import time
+
+    import h5py
+
+    from actdoc.errors import InvalidDump
+    from actdoc.io import open_dump
+
+    path = tmp_path / "bomb.h5"
+    with h5py.File(path, "w") as f:
+        g = f.create_group("layers/h")
+        g.attrs["activation"] = "relu"
+        g.create_dataset("preact", shape=(10**12, 10**6), dtype="f4", chunks=(1024, 256))
+    started = time.monotonic()
+    with pytest.raises(InvalidDump, match=r"bomb\.h5, layer 'h', array 'preact': declares .* "
+                                          r"never written"):
+        open_dump(path)
+    assert time.monotonic() - started < 10
+
+
+def test_a_dead_layer_compressed_with_gzip_is_still_read(tmp_path):
+    # The counterpart: an all-zero layer (every relu unit dead) legitimately compresses very well.
+    import h5py
+    import numpy as np
+
+    from actdoc.io import open_dump
+
+    path = tmp_path / "dead.h5"
+    with h5py.File(path, "w") as f:
+        g = f.create_group("layers/h")
+        g.attrs["activation"] = "relu"
+        g.create_dataset("output", data=np.zeros((20000, 1024), "f4"), chunks=(1024, 256),
+                         compression="gzip", compression_opts=9)
+    with open_dump(path) as dump:
+        assert dump.layers[0].info.units == 1024
+
+
+def test_an_npz_layer_with_an_empty_name_is_refused(tmp_path):
+    # interfaces.md section 2: arrays are named "<layer>/preact"; "/preact" names no layer.
+    import numpy as np
+
+    from actdoc.errors import InvalidDump
+    from actdoc.io import open_dump
+
+    path = tmp_path / "noname.npz"
+    np.savez(path, **{"/preact": np.zeros((4, 2), "f4")})
+    with pytest.raises(InvalidDump, match=r"noname\.npz: a layer has an empty name"):
+        open_dump(path)
