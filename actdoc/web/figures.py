@@ -6,11 +6,14 @@ dicts appear in each page's JSON twin.
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
 import numpy as np
 
 from actdoc.analysis.defaults import ROWS
+from actdoc.analysis.histograms import ASINH_SCALE
 from actdoc.model import ActivationKind, Findings, LayerInfo, LayerReport
 from actdoc.neurons import Neuron
 
@@ -90,44 +93,142 @@ def depth_signal(findings: Findings) -> dict[str, Any]:
         yaxis={"type": "log", "title": {"text": "size (log)"}}, xaxis={"type": "category"})}
 
 
-def zone_shapes(info: LayerInfo,
-                settings: Mapping[str, float]) -> tuple[list, list, float | None]:
-    """Shaded bands for the saturated and near-linear zones of the layer's kind, their labels,
-    and the saturation edge |z| (None for kinds that do not saturate)."""
-    values = {name: float(settings.get(name, ROWS[name].default)) for name in ZONE_SETTINGS}
+#: Inputs reaching past this many times the saturation edge get an asinh z axis: on a plain
+#: axis the zones shrink to a sliver around z = 0 and a few wide outer bins fill the chart.
+WIDE_INPUT_RATIO = 20.0
+
+
+@dataclass(frozen=True)
+class PlainAxis:
+    """The z axis as it is: positions are z."""
+
+    transformed = False
+
+    def place(self, z: Any) -> np.ndarray:
+        return np.asarray(z, dtype=float)
+
+    def layout(self, low: float, high: float) -> dict[str, Any]:
+        return {"title": {"text": "total input z"}, "range": [low, high]}
+
+
+@dataclass(frozen=True)
+class AsinhAxis:
+    """A z axis drawn at asinh(z / scale): even steps within about +-scale, decades beyond, the
+    sign kept. Ticks are labelled in z. The default scale is the engine's histogram scale, whose
+    bins are even steps of asinh(z / ASINH_SCALE): on this axis they are all equally wide."""
+
+    scale: float = ASINH_SCALE
+    transformed = True
+
+    def place(self, z: Any) -> np.ndarray:
+        return np.arcsinh(np.asarray(z, dtype=float) / self.scale)
+
+    def edges(self, low: float, high: float, bins: int) -> np.ndarray:
+        """``bins`` bins from ``low`` to ``high``, equally wide on this axis."""
+        return self.scale * np.sinh(np.linspace(*self.place([low, high]), bins + 1))
+
+    def view(self, low: float, high: float) -> list[float]:
+        """The axis range for z from ``low`` to ``high``, with a little room so that a tick at
+        either end (often a grid edge such as 10k) is drawn."""
+        placed = self.place([low, high])
+        return [float(placed[0]) - 0.1, float(placed[1]) + 0.1]
+
+    def ticks(self, low: float, high: float, most: int = 11) -> tuple[list[float], list[str]]:
+        """0 and powers of ten in z, thinned to every second or third decade if needed so that
+        at most ``most`` ticks share the axis."""
+        top = max(abs(low), abs(high), self.scale)
+        decades = list(range(math.ceil(math.log10(top)), math.floor(math.log10(self.scale)), -1))
+        ends = self.view(low, high)
+        gap = (ends[1] - ends[0]) / most
+        for stride in range(1, len(decades) + 1):
+            kept = [k for k in decades[::stride] if self.place(10.0 ** k) >= gap]
+            values = [0.0] + [sign * 10.0 ** k for k in kept for sign in (1, -1)]
+            values = sorted(v for v in values if ends[0] <= self.place(v) <= ends[1])
+            steps = np.diff(self.place(values))
+            if len(values) <= most and (steps.size == 0 or steps.min() >= 0.9 * gap):
+                break
+        text = [("−" if v < 0 else "") + decade_text(abs(v)) for v in values]
+        return [float(p) for p in self.place(values)], text
+
+    def layout(self, low: float, high: float) -> dict[str, Any]:
+        values, text = self.ticks(low, high)
+        return {"title": {"text": "total input z (asinh scale: linear near 0, "
+                                  "logarithmic beyond)"},
+                "range": self.view(low, high),
+                "tickmode": "array", "tickvals": values, "ticktext": text}
+
+
+def decade_text(value: float) -> str:
+    """0.01, 1, 100, 10k, 1M: a power of ten as a short tick label."""
+    if value == 0:
+        return "0"
+    power = round(math.log10(value))
+    for step, suffix in ((9, "G"), (6, "M"), (3, "k")):
+        if power >= step:
+            return f"{10 ** (power - step)}{suffix}" if power - step < 3 else f"1e{power}"
+    return f"{10.0 ** power:g}"
+
+
+def saturation_reach(info: LayerInfo, settings: Mapping[str, float]) -> float | None:
+    """The saturation edge |z| of the layer's kind (None for kinds that do not saturate)."""
+    values = zone_settings(settings)
+    zone = Neuron(info.kind, info.negative_slope, info.threshold).saturation_zone(
+        values["logistic_saturation_margin"], values["tanh_saturation_level"])
+    return None if zone is None else max(abs(zone.z_low), abs(zone.z_high))
+
+
+def input_axis(info: LayerInfo, settings: Mapping[str, float], low: float,
+               high: float) -> PlainAxis | AsinhAxis:
+    """The z axis for inputs from ``low`` to ``high``: asinh when they reach past
+    WIDE_INPUT_RATIO times the saturation edge, plain otherwise."""
+    reach = saturation_reach(info, settings)
+    if reach is not None and max(abs(low), abs(high)) > WIDE_INPUT_RATIO * reach:
+        return AsinhAxis()
+    return PlainAxis()
+
+
+def zone_settings(settings: Mapping[str, float]) -> dict[str, float]:
+    return {name: float(settings.get(name, ROWS[name].default)) for name in ZONE_SETTINGS}
+
+
+def zone_shapes(info: LayerInfo, settings: Mapping[str, float],
+                axis: PlainAxis | AsinhAxis) -> list[dict[str, Any]]:
+    """Shaded bands for the saturated and near-linear zones of the layer's kind, placed on
+    ``axis``. They are named in the legend, not labelled on the chart: on a wide or lopsided
+    range labels at the zone edges run into each other."""
+    values = zone_settings(settings)
     neuron = Neuron(info.kind, info.negative_slope, info.threshold)
-    shapes, notes = [], []
     band = {"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 1,
             "line": {"width": 0}, "layer": "below"}
-    label = {"yref": "paper", "xref": "x", "showarrow": False, "font": {"size": 11}}
+    shapes = []
     saturation = neuron.saturation_zone(values["logistic_saturation_margin"],
                                         values["tanh_saturation_level"])
-    reach = None
     if saturation is not None:
-        reach = max(abs(saturation.z_low), abs(saturation.z_high))
-        shapes.append({**band, "x0": -1e6, "x1": saturation.z_low, "fillcolor": SATURATED_FILL})
-        shapes.append({**band, "x0": saturation.z_high, "x1": 1e6, "fillcolor": SATURATED_FILL})
-        notes.append({**label, "x": saturation.z_high, "y": 0.97, "xanchor": "left",
-                      "yanchor": "top", "text": " saturated",
-                      "font": {"size": 11, "color": "#8a5a12"}})
+        low, high, far = axis.place([saturation.z_low, saturation.z_high, 1e6])
+        legend = {**band, "fillcolor": SATURATED_FILL, "legendgroup": "saturated",
+                  "name": "saturated"}
+        shapes.append({**legend, "x0": -far, "x1": low, "showlegend": True})
+        shapes.append({**legend, "x0": high, "x1": far, "showlegend": False})
     linear = neuron.linear_zone(values["linear_gain_share"])
     if linear is not None:
-        shapes.append({**band, "x0": linear.z_low, "x1": linear.z_high,
-                       "fillcolor": LINEAR_FILL})
-        notes.append({**label, "x": 0, "y": 0.97, "yanchor": "top", "text": "near-linear",
-                      "font": {"size": 11, "color": "#2c4f9c"}})
-    return shapes, notes, reach
+        low, high = axis.place([linear.z_low, linear.z_high])
+        shapes.append({**band, "x0": low, "x1": high, "fillcolor": LINEAR_FILL,
+                       "showlegend": True, "name": "near-linear"})
+    return shapes
 
 
-def curve_trace(info: LayerInfo, low: float, high: float) -> dict[str, Any] | None:
-    """The layer's transfer function f(z) between ``low`` and ``high``, on the right axis."""
+def curve_trace(info: LayerInfo, low: float, high: float,
+                axis: PlainAxis | AsinhAxis = PlainAxis()) -> dict[str, Any] | None:
+    """The layer's transfer function f(z) between ``low`` and ``high``, on the right axis,
+    sampled evenly along ``axis``."""
     if not np.isfinite([low, high]).all() or high <= low:
         return None
-    z = np.linspace(low, high, 241)
+    z = axis.edges(low, high, 240) if axis.transformed else np.linspace(low, high, 241)
     y = Neuron(info.kind, info.negative_slope, info.threshold).output(z)
     return {"type": "scatter", "mode": "lines", "name": f"f(z) = {info.kind.value}",
-            "x": z, "y": y, "yaxis": "y2", "line": {"color": INK, "width": 2},
-            "hovertemplate": "z %{x:.3g} → f %{y:.3g}<extra></extra>"}
+            "x": axis.place(z), "y": y, "customdata": z, "yaxis": "y2",
+            "line": {"color": INK, "width": 2},
+            "hovertemplate": "z %{customdata:.3g} → f %{y:.3g}<extra></extra>"}
 
 
 def occupied_range(edges: np.ndarray, counts: np.ndarray) -> tuple[float, float]:
@@ -142,18 +243,31 @@ def occupied_range(edges: np.ndarray, counts: np.ndarray) -> tuple[float, float]
     return low, high
 
 
+def bin_labels(edges: np.ndarray, open_ends: bool) -> list[str]:
+    """Each bin's z range for the hover; with ``open_ends`` the outer bins also hold every
+    value beyond the grid (the engine's fixed grids count overflow there)."""
+    labels = [f"z {low:.3g} to {high:.3g}" for low, high in zip(edges[:-1], edges[1:])]
+    if open_ends and len(labels) > 1:
+        labels[0], labels[-1] = f"z below {edges[1]:.3g}", f"z above {edges[-2]:.3g}"
+    return labels
+
+
 def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
-                   colour: str = "#7fb2a8") -> tuple[dict[str, Any], str]:
-    """Bars over the bins and the y label. Bins of unequal width (the engine's asinh grid) are
-    drawn as observations per unit of x, so a wide outer bin does not look like a wall."""
+                   colour: str = "#7fb2a8", axis: PlainAxis | AsinhAxis = PlainAxis(),
+                   open_ends: bool = False) -> tuple[dict[str, Any], str]:
+    """Bars over the bins, placed on ``axis``, and the y label. Bins of unequal width on the
+    axis (the engine's asinh grid on a plain axis) are drawn as observations per unit of the
+    axis, so a wide outer bin does not look like a wall and each bar's area is its count."""
     edges = np.asarray(edges, dtype=float)
     counts = np.asarray(counts)
-    widths = np.diff(edges)
+    placed = axis.place(edges)
+    widths = np.diff(placed)
     uneven = widths.size > 1 and widths.max() > 1.01 * widths.min()
     heights = counts / widths if uneven else counts
-    trace = {"type": "bar", "name": name, "x": (edges[:-1] + edges[1:]) / 2, "y": heights,
-             "width": widths, "customdata": counts, "marker": {"color": colour},
-             "hovertemplate": "%{x:.3g}: %{customdata} observations<extra></extra>"}
+    trace = {"type": "bar", "name": name, "x": (placed[:-1] + placed[1:]) / 2, "y": heights,
+             "width": widths, "customdata": counts, "hovertext": bin_labels(edges, open_ends),
+             "marker": {"color": colour},
+             "hovertemplate": "%{hovertext}: %{customdata} observations<extra></extra>"}
     # Not "per unit": on these pages a unit is a neuron.
     return trace, ("observations ÷ bin width" if uneven else "observations")
 
@@ -162,21 +276,23 @@ def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
 SPIKE_RATIO = 20.0
 
 
-def count_axis(heights: np.ndarray, label: str) -> dict[str, Any]:
+def count_axis(heights: np.ndarray, label: str, broad: bool = False) -> dict[str, Any]:
     """The y axis of a histogram: logarithmic when one spike (rectified outputs at exactly 0)
-    would flatten every other bar on a linear axis."""
+    would flatten every other bar on a linear axis, or, with ``broad`` (an asinh x axis), when
+    the tallest bar is SPIKE_RATIO times the median one: there bars span decades too."""
     filled = np.asarray(heights, dtype=float)
     filled = filled[np.isfinite(filled) & (filled > 0)]
     tallest = np.sort(filled)[-2:]
-    if filled.size > 2 and tallest[1] > SPIKE_RATIO * tallest[0]:
+    spike = filled.size > 2 and tallest[1] > SPIKE_RATIO * tallest[0]
+    if spike or (broad and filled.size > 2 and tallest[1] > SPIKE_RATIO * np.median(filled)):
         return {"type": "log", "title": {"text": f"{label} (log scale)"}}
     return {"title": {"text": label}}
 
 
-def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str,
-                     x_label: str, y_label: str | None = None) -> dict[str, Any]:
+def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str, x_label: str,
+                     y_label: str | None = None, open_ends: bool = False) -> dict[str, Any]:
     """A plain histogram (outputs, biases, weights) over the range that holds data."""
-    trace, bars_label = histogram_bars(edges, counts, x_label)
+    trace, bars_label = histogram_bars(edges, counts, x_label, open_ends=open_ends)
     return {"data": [trace], "layout": base_layout(
         title, bargap=0, showlegend=False,
         xaxis={"title": {"text": x_label}, "range": list(occupied_range(edges, counts))},
@@ -185,24 +301,30 @@ def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str,
 
 def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
                        settings: Mapping[str, float], title: str,
-                       band: Sequence[float] | None = None) -> dict[str, Any]:
+                       band: Sequence[float] | None = None,
+                       open_ends: bool = False) -> dict[str, Any]:
     """Histogram of total inputs with f(z) drawn over it and the zones shaded.
 
     The view spans the inputs and, for saturating kinds, both saturation edges, so a reader
-    sees where the inputs sit against them. ``band`` (low, high) marks a range of z, e.g. the
-    middle 90% of one unit's inputs.
+    sees where the inputs sit against them; inputs far past the edges get an asinh z axis
+    (``input_axis``). ``band`` (low, high) marks a range of z, e.g. the middle 90% of one
+    unit's inputs.
     """
     edges = np.asarray(edges, dtype=float)
-    bars, y_label = histogram_bars(edges, counts, "total inputs")
-    traces = [bars]
     low, high = occupied_range(edges, counts)
-    shapes, notes, reach = zone_shapes(info, settings)
+    axis = input_axis(info, settings, low, high)
+    bars, y_label = histogram_bars(edges, counts, "total inputs", axis=axis,
+                                   open_ends=open_ends)
+    bars["showlegend"] = False  # the y axis title says what the bars are
+    traces = [bars]
+    shapes = zone_shapes(info, settings, axis)
+    reach = saturation_reach(info, settings)
     if reach is not None:
-        low, high = min(low, -1.5 * reach), max(high, 1.5 * reach)  # room for the zone label
-    curve = curve_trace(info, low, high)
+        low, high = min(low, -1.5 * reach), max(high, 1.5 * reach)  # both edges in view
+    curve = curve_trace(info, low, high, axis)
     # tickmode "auto": plotly.js would otherwise sync these ticks to the left axis' grid,
     # which lands them on values like 1.67 and 3.87.
-    curve_axis = {"overlaying": "y", "side": "right", "showgrid": False,
+    curve_axis = {"overlaying": "y", "side": "right", "showgrid": False, "zeroline": False,
                   "title": {"text": "output f(z)"}, "nticks": 6, "tickmode": "auto"}
     if curve is not None:
         traces.append(curve)
@@ -210,12 +332,15 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
         pad = 0.05 * ((y_high - y_low) or 1.0)
         curve_axis["range"] = [y_low - pad, y_high + pad]
     if band is not None and np.isfinite(band).all():
+        x0, x1 = axis.place(band)
         shapes.append({"type": "rect", "xref": "x", "yref": "paper", "y0": 0, "y1": 0.04,
-                       "x0": band[0], "x1": band[1], "fillcolor": ACCENT, "line": {"width": 0}})
+                       "x0": x0, "x1": x1, "fillcolor": ACCENT, "line": {"width": 0}})
     return {"data": traces, "layout": base_layout(
-        title, shapes=shapes, annotations=notes, bargap=0, margin={"r": 60},
-        xaxis={"title": {"text": "total input z"}, "range": [low, high]},
-        yaxis={"title": {"text": y_label}},
+        title, shapes=shapes, bargap=0, margin={"r": 60, "b": 84},
+        # The curve and two zones do not fit beside the title: the legend goes below the axis.
+        legend={"x": 0, "xanchor": "left", "y": -0.3, "yanchor": "top"},
+        xaxis=axis.layout(low, high),
+        yaxis=count_axis(bars["y"], y_label, broad=axis.transformed),
         yaxis2=curve_axis)}
 
 

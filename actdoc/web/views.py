@@ -179,12 +179,14 @@ def layer_detail(findings: Findings, report: LayerReport, **table_options: Any) 
     inputs = None
     if hist is not None and np.asarray(hist.counts).size:
         inputs = figures.inputs_under_curve(info, hist.edges, hist.counts, findings.settings,
-                                            f"Total inputs of {info.name} under f(z)")
+                                            f"Total inputs of {info.name} under f(z)",
+                                            open_ends=True)
     output_hist = report.histograms.get("output")
     outputs = None
     if output_hist is not None and np.asarray(output_hist.counts).size:
         outputs = figures.histogram_figure(output_hist.edges, output_hist.counts,
-                                           f"Outputs of {info.name}", "output y")
+                                           f"Outputs of {info.name}", "output y",
+                                           open_ends=True)
     return {
         "layer": {**layer_summary(report), "kind_note": info.kind_note},
         "findings": findings_for_page(findings, sorted(
@@ -196,14 +198,23 @@ def layer_detail(findings: Findings, report: LayerReport, **table_options: Any) 
     }
 
 
-def _values_histogram(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
+def _values_histogram(values: np.ndarray, axis_for=None) -> tuple[np.ndarray, np.ndarray, int]:
+    """Counts of the finite values in UNIT_BINS bins over their range, and how many were not
+    finite. ``axis_for(low, high)`` may name the axis the bins are drawn on: on an asinh axis
+    they are made equally wide there, not in the values themselves."""
     finite = values[np.isfinite(values)]
     if finite.size == 0:
         return np.array([0.0, 1.0]), np.array([0]), int(values.size)
     low, high = float(finite.min()), float(finite.max())
     if high - low < 1e-12:
         low, high = low - 0.5, high + 0.5
-    counts, edges = np.histogram(finite, bins=UNIT_BINS, range=(low, high))
+    axis = axis_for(low, high) if axis_for is not None else None
+    if axis is not None and axis.transformed:
+        edges = axis.edges(low, high, UNIT_BINS)
+        edges[[0, -1]] = low, high  # exact ends: sinh(asinh(x)) may miss x by an ulp
+        counts, edges = np.histogram(finite, bins=edges)
+    else:
+        counts, edges = np.histogram(finite, bins=UNIT_BINS, range=(low, high))
     return edges, counts, int(values.size - finite.size)
 
 
@@ -220,7 +231,8 @@ def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) 
     nonfinite = {}
     if info.has("preact"):
         z = layer.unit_values("preact", unit)
-        edges, counts, nonfinite["preact"] = _values_histogram(z)
+        edges, counts, nonfinite["preact"] = _values_histogram(
+            z, lambda low, high: figures.input_axis(info, findings.settings, low, high))
         finite = z[np.isfinite(z)]
         band = np.percentile(finite, [5, 95]) if finite.size else None
         charts["preact"] = figures.inputs_under_curve(

@@ -183,3 +183,31 @@ def test_demo_shelf_drift_page_and_the_readme_survey(browser, demo_url):
     shoot(page, "close-up-logistic")
     assert errors == []
     page.close()
+
+
+def boxes_overlap(a: dict, b: dict) -> bool:
+    return not (a["x"] + a["width"] <= b["x"] or b["x"] + b["width"] <= a["x"]
+                or a["y"] + a["height"] <= b["y"] or b["y"] + b["height"] <= a["y"])
+
+
+def test_wide_inputs_close_up_reads_in_z_with_separate_zone_names(browser, demo_url):
+    # The demo's raw-input tanh layer reaches about +-10^4, thousands of times its saturation
+    # edge atanh(0.99) ~ 2.65: the chart switches to an asinh axis labelled in z.
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
+    page.goto(demo_url + "/")
+    page.click("text=tanh_raw_inputs.h5")
+    page.wait_for_url("**/dumps/*")
+    page.click("table.layers >> text=hidden1")
+    page.wait_for_url("**/layers/*")
+    assert "Total inputs of hidden1" in chart_title(page, "inputs")
+    chart = page.locator("#chart-inputs")
+    ticks = chart.locator(".xtick text").all_text_contents()
+    assert {"−10k", "−1", "0", "1", "10k"} <= set(ticks), ticks
+    assert "asinh" in chart.locator(".g-xtitle").text_content()
+    texts = [chart.locator(".legend .legendtext", has_text=name).first
+             for name in ("saturated", "near-linear")]
+    boxes = [text.bounding_box() for text in texts]
+    boxes.append(chart.locator(".g-xtitle").bounding_box())
+    assert not any(boxes_overlap(a, b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
+    shoot(page, "close-up-wide-inputs")
+    page.close()
