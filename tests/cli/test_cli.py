@@ -166,3 +166,20 @@ def test_serve_with_an_unusable_workspace_is_one_line(capsys, tmp_path):
     status, _, err = run(capsys, "serve", "--workspace", str(blocker / "ws"), "--port", "0")
     assert status == 2 and "cannot use the workspace folder" in err and err.count("\n") == 1
     assert blocker.read_text() == "not a folder"
+
+
+def test_progress_bar_draws_on_a_terminal_only():
+    from actdoc.cli import ProgressBar
+
+    class Terminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    shown, hidden = Terminal(), io.StringIO()
+    for stream in (shown, hidden):
+        bar = ProgressBar("analysing", stream=stream)
+        for step in range(11):
+            bar(step / 10)
+    assert hidden.getvalue() == ""
+    drawn = shown.getvalue()
+    assert drawn.startswith("\ranalysing [") and "100.0%" in drawn and drawn.endswith("\n")
