@@ -9,6 +9,7 @@ links are followed, but only to objects inside the same file.
 from __future__ import annotations
 
 import math
+import threading
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -18,6 +19,7 @@ import numpy as np
 from actdoc.errors import InvalidDump, UnreadableDump, UnsafeDump, describe
 from actdoc.io import statedict
 from actdoc.io.base import RawDump, RawLayer
+from actdoc.io.direct import FileMap, StorageMap, Tile, storage_map
 from actdoc.model import LAYER_ARRAYS
 
 SIGNATURE = b"\x89HDF\r\n\x1a\n"
@@ -41,14 +43,53 @@ def find_signature(path: Path) -> bool:
     return False
 
 
-class HDF5Source:
-    """An ArraySource over one h5py Dataset of an open file."""
+_UNMAPPED = object()
 
-    def __init__(self, dataset: h5py.Dataset, path: Path, layer: str | None, array: str):
+
+class HDF5Source:
+    """An ArraySource over one h5py Dataset of an open file.
+
+    Given the file's ``FileMap``, blocks of an uncompressed float dataset are copied from the
+    map instead of through h5py (``actdoc.io.direct``), and ``tiles`` offers them uncopied.
+    """
+
+    def __init__(self, dataset: h5py.Dataset, path: Path, layer: str | None, array: str,
+                 files: FileMap | None = None):
         self._ds = dataset
         self._where = describe(path, layer, array)
         self.shape = tuple(int(n) for n in dataset.shape)
         self.dtype = dataset.dtype
+        self._files = files
+        self._storage = _UNMAPPED if files is not None else None
+        self._lock = threading.Lock()
+
+    def storage(self) -> StorageMap | None:
+        """The dataset's place in the file map (found on first use), or None."""
+        if self._storage is _UNMAPPED:
+            with self._lock:
+                if self._storage is _UNMAPPED:
+                    try:
+                        self._storage = storage_map(self._ds, self._files)
+                    except READ_ERRORS:
+                        self._storage = None  # h5py's own read will report the problem
+        return self._storage
+
+    def tiles(self, start: int, stop: int) -> list[Tile] | None:
+        """Uncopied views of rows ``start:stop`` as ``(row0, row1, col0, col1, values)``,
+        or None where the dataset cannot be mapped (then read blocks with read_samples)."""
+        storage = self.storage()
+        if storage is None:
+            return None
+        try:
+            return storage.tiles(start, min(stop, self.shape[0]))
+        except OSError:  # no address space left for a map: h5py reads it instead
+            return None
+
+    def release(self, start: int, stop: int) -> None:
+        """Drop the mapped pages of rows ``start:stop`` once their tiles are measured."""
+        storage = self.storage()
+        if storage is not None:
+            storage.release(start, min(stop, self.shape[0]))
 
     def _failed(self, exc: Exception) -> UnreadableDump:
         return UnreadableDump(f"{self._where}: reading the data failed; the file is truncated or "
@@ -61,6 +102,12 @@ class HDF5Source:
         try:
             if (out is not None and out.shape == rows and out.dtype == self.dtype
                     and out.flags.c_contiguous and out.flags.writeable):
+                storage = self.storage()
+                if storage is not None:
+                    try:
+                        return storage.fill(start, stop, out)
+                    except OSError:  # no address space left for a map: h5py reads it
+                        pass
                 if out.size:
                     self._ds.read_direct(out, np.s_[start:stop])
                 return out
@@ -165,7 +212,8 @@ def layer_groups(handle: h5py.File, path: Path) -> list[tuple[str, h5py.Group]]:
     return out
 
 
-def read_layers_layout(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...], str]:
+def read_layers_layout(handle: h5py.File, path: Path,
+                       files: FileMap | None = None) -> tuple[tuple[RawLayer, ...], str]:
     """RawLayers of the /layers layout and how to order them when ``order`` is missing."""
     raw = []
     for position, (name, group) in enumerate(layer_groups(handle, path)):
@@ -173,7 +221,8 @@ def read_layers_layout(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, .
         for array in LAYER_ARRAYS:
             ds = checked_dataset(group, array, path, name, array)
             if ds is not None:
-                arrays[array] = HDF5Source(ds, path, name, array)
+                mapped = files if array in ("preact", "output") else None
+                arrays[array] = HDF5Source(ds, path, name, array, mapped)
         raw.append(RawLayer(name=name, attrs=plain_attrs(group), arrays=arrays,
                             position=position))
     ordering = "position" if tracks_order(handle["layers"]) else "natural"
@@ -220,17 +269,23 @@ class HDF5Reader:
         except READ_ERRORS as exc:
             raise UnreadableDump(f"{describe(path)}: not a readable HDF5 file; it is truncated or "
                                  f"corrupt ({exc})") from None
+        files = FileMap(path)
+
+        def close() -> None:
+            files.close()
+            handle.close()
+
         try:
             if "layers" in handle:
-                layers, ordering = read_layers_layout(handle, path)
+                layers, ordering = read_layers_layout(handle, path, files)
             else:
                 layers, ordering = read_state_dict(handle, path)
             probe = probe_input(handle, path)
         except BaseException:
-            handle.close()
+            close()
             raise
         return RawDump(path=path, format="hdf5", layers=layers, probe_input=probe,
-                       closer=handle.close, ordering=ordering)
+                       closer=close, ordering=ordering)
 
 
 def chunk_shape(units: int, spatial: tuple[int, ...], rows: int = 1024,
