@@ -26,7 +26,7 @@ from typing import Any, Callable, Iterator, Sequence
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.engine import analyze, findings_from_stats
 from actdoc.analysis.stats import LayerStats, accumulate_layer
-from actdoc.digest import file_sha256 as digest
+from actdoc.digest import file_sha256 as sha256_of
 from actdoc.errors import ActdocError
 from actdoc.io import open_dump
 from actdoc.io.shards import is_sharded, place_layer, shard_layout
@@ -95,14 +95,16 @@ def analyze_shards(
     scheduler: Any = None,
     progress: Callable[[float], None] | None = None,
     open_options: dict[str, Any] | None = None,
+    digest: bool = True,
 ) -> Findings:
     """Findings for a sharded dump: in this process, or on a dask cluster given ``scheduler``.
 
     ``paths`` is anything ``actdoc.io.shards.open_shards`` accepts (a folder, a glob pattern or
     a list of files); the shards are validated first. ``scheduler`` is a scheduler address
     ("tcp://host:8786"), an existing Client, "local" for a LocalCluster on this machine, or
-    None to measure the shards here one after another (no dask needed). ``progress(fraction)`` is called as (shard, layer) tasks finish, weighted by the
-    values each covers. The findings' source names the shards (see ``sharded_source``).
+    None to measure the shards here one after another (no dask needed). ``progress(fraction)``
+    is called as (shard, layer) tasks finish, weighted by the values each covers. The findings'
+    source names the shards (see ``sharded_source``); ``digest=False`` skips hashing them.
     """
 
     settings = settings or Settings()
@@ -113,14 +115,16 @@ def analyze_shards(
     tasks = _shard_tasks(layout)
     if scheduler is None:
         merged = _merge(layout, _run_here(tasks, settings, open_options, progress))
-        source = sharded_source(layout, [digest(str(p)) for p in layout.paths])
+        source = sharded_source(layout, [file_sha256(str(p)) if digest else ""
+                                         for p in layout.paths])
     else:
         with connect(scheduler) as client:
             digests = client.map(file_sha256, [str(Path(p).resolve()) for p in layout.paths],
-                                 pure=False)
+                                 pure=False) if digest else None
             merged = _merge(layout, _run_on_cluster(client, tasks, settings, open_options,
                                                     progress))
-            source = sharded_source(layout, client.gather(digests))
+            source = sharded_source(layout, client.gather(digests) if digest
+                                    else [""] * len(layout.paths))
     with open_dump(layout.paths[0], **open_options) as first:
         whole = _concatenated_dump(first, layout)
         findings = findings_from_stats(whole, merged, settings, source)
@@ -137,26 +141,29 @@ def analyze_target(
     progress: Callable[[float], None] | None = None,
     activations: Sequence[str] = (),
     workers: int | None = None,
+    digest: bool = True,
 ) -> Findings:
     """What ``actdoc analyze DUMP [--scheduler ADDRESS]`` runs, in one call.
 
     A single file without a scheduler goes to the local engine; a folder or glob of shards, or
     any target with a scheduler ("local" for a LocalCluster), goes to ``analyze_shards``.
     ``activations`` are the command line's ``--activation`` values; ``workers`` the local
-    engine's measuring threads.
+    engine's measuring threads; ``digest=False`` skips hashing the dump (``source.sha256``
+    is then "").
     """
 
     options = {"activations": list(activations)}
     if scheduler is None and not is_sharded(dump):
         with open_dump(dump, **options) as opened:
-            return analyze(opened, settings, progress=progress, workers=workers)
+            return analyze(opened, settings, progress=progress, workers=workers,
+                           digest=digest)
     return analyze_shards(dump, settings, scheduler=scheduler, progress=progress,
-                          open_options=options)
+                          open_options=options, digest=digest)
 
 
 def file_sha256(path: str) -> str:
     """On a worker: the SHA-256 of one shard file, so hashing runs in parallel too."""
-    return digest(path)
+    return sha256_of(path)
 
 
 def sharded_source(layout, digests: Sequence[str]) -> SourceInfo:
@@ -169,8 +176,11 @@ def sharded_source(layout, digests: Sequence[str]) -> SourceInfo:
     manifest = "".join(f"{digest}  {Path(path).name}\n"
                        for digest, path in zip(digests, layout.paths))
     names = [Path(p).name for p in layout.paths]
+    if not any(digests):  # not hashed: no manifest digest either
+        manifest = ""
     label = names[0] if len(names) == 1 else f"{names[0]} .. {names[-1]} ({len(names)} shards)"
-    return SourceInfo(file=label, sha256=hashlib.sha256(manifest.encode()).hexdigest(),
+    return SourceInfo(file=label,
+                      sha256=hashlib.sha256(manifest.encode()).hexdigest() if manifest else "",
                       format=layout.format, samples=layout.samples)
 
 

@@ -42,10 +42,11 @@ from actdoc.model import (
 STATE_WIDTH = 16
 
 
-def source_info(dump: Dump) -> SourceInfo:
-    """File name, SHA-256 of the file's bytes where it exists (else ""), format, samples."""
+def source_info(dump: Dump, digest: bool = True) -> SourceInfo:
+    """File name, SHA-256 of the file's bytes where it exists and ``digest`` asks for it (else
+    ""), format, samples."""
     path = Path(dump.path)
-    digest = file_sha256(path) if path.is_file() else ""
+    digest = file_sha256(path) if digest and path.is_file() else ""
     return SourceInfo(file=path.name, sha256=digest, format=dump.format, samples=dump.samples)
 
 
@@ -218,16 +219,21 @@ def _measure_all(dump: Dump, settings: Settings, progress: Callable[[float], Non
 
 def analyze(dump: Dump, settings: Settings | None = None,
             progress: Callable[[float], None] | None = None,
-            source: SourceInfo | None = None, workers: int | None = None) -> Findings:
+            source: SourceInfo | None = None, workers: int | None = None,
+            digest: bool = True) -> Findings:
     """Measure every layer of ``dump``, run every registered check, and return the Findings.
 
     ``workers`` is the number of measuring threads (default: the available cores, at most
-    MAX_WORKERS; 1 measures in the calling thread).
+    MAX_WORKERS; 1 measures in the calling thread). With ``digest=False`` the file is not
+    hashed and ``source.sha256`` is "": for outputs that never show it (hashing costs about as
+    much CPU as reading the dump).
     """
     settings = settings or Settings()
     if progress is not None:
         progress(0.0)
     hashing = None
+    if source is None and not digest:
+        source = source_info(dump, digest=False)
     if source is None:  # hashlib releases the GIL: hash the file while the layers are measured
         hashing = ThreadPoolExecutor(max_workers=1, thread_name_prefix="actdoc-sha256")
         pending_source = hashing.submit(source_info, dump)

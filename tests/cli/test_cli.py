@@ -183,3 +183,42 @@ def test_progress_bar_draws_on_a_terminal_only():
     assert hidden.getvalue() == ""
     drawn = shown.getvalue()
     assert drawn.startswith("\ranalysing [") and "100.0%" in drawn and drawn.endswith("\n")
+
+
+def test_only_outputs_that_show_the_digest_hash_the_dump(tmp_path, capsys, monkeypatch):
+    """JSON carries the file's SHA-256 (reference: hashlib over the bytes); the text report,
+    CSV and the gate never show it, so they must not spend a pass hashing the file."""
+    import hashlib
+
+    import actdoc.digest
+
+    path = tmp_path / "d.h5"
+    _write(path, dead=DEAD)
+    assert main(["analyze", str(path), "--format", "json"]) == 0
+    document = json.loads(capsys.readouterr().out)
+    assert document["source"]["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
+
+    def no_hashing(*args, **kwargs):
+        raise AssertionError("the dump was hashed")
+
+    monkeypatch.setattr(actdoc.digest, "file_sha256", no_hashing)
+    monkeypatch.setattr("actdoc.analysis.engine.file_sha256", no_hashing)
+    assert main(["analyze", str(path)]) == 0
+    assert main(["analyze", str(path), "--format", "csv"]) == 0
+    assert main(["check", str(path)]) == 1
+    assert "hidden" in capsys.readouterr().out
+
+
+def test_a_dump_that_cannot_be_hashed_is_one_sentence(tmp_path, capsys, monkeypatch):
+    import actdoc.digest
+
+    path = tmp_path / "d.h5"
+    _write(path)
+
+    def refuse(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(actdoc.digest, "file_sha256", refuse)
+    assert main(["analyze", str(path), "--format", "json"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err == "actdoc: d.h5: cannot be read to compute its SHA-256 (Permission denied)"
