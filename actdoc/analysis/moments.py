@@ -31,6 +31,14 @@ class Moments:
         return Moments(self.count.copy(), self.mean.copy(), self.m2.copy(), self.m3.copy(),
                        self.m4.copy())
 
+    def absorb(self, cols: slice, other: "Moments") -> None:
+        """Combine ``other`` (moments of more observations of the units ``cols``) in place."""
+        part = Moments(self.count[cols], self.mean[cols], self.m2[cols], self.m3[cols],
+                       self.m4[cols])
+        combined = part.combine(other)
+        for name in ("count", "mean", "m2", "m3", "m4"):
+            getattr(self, name)[cols] = getattr(combined, name)
+
     def combine(self, other: "Moments") -> "Moments":
         """Pebay's pairwise update: the moments of both sets of observations together."""
         na, nb = self.count, other.count
