@@ -21,10 +21,11 @@ def test_tiny_benchmark_run_writes_a_complete_result(tmp_path):
     assert "analyze / raw read" in done.stdout and "unit column read" in done.stdout
     result = json.loads((tmp_path / "out" / "latest.json").read_text())
     (size,) = result["results"]
-    assert set(size["workloads"]) == {"raw", "analyze", "naive"}
+    assert set(size["workloads"]) == {"raw", "analyze", "analyze-json", "naive"}
     for row in size["workloads"].values():
         assert row["wall_best_s"] > 0 and row["peak_rss_mb"] > 10
     assert size["analyze_over_raw"] > 0 and size["naive_over_analyze"] > 0
+    assert size["json_over_raw"] > 0 and "hashing the file" in done.stdout
     assert 0 < size["unit_read_ms"]["median"] <= size["unit_read_ms"]["max"]
 
 
