@@ -53,18 +53,25 @@ class Accumulator:
                 self._mask[:size].reshape(rows, width))
 
     # ------------------------------------------------------------------------- tiles
-    def add_tile(self, z: np.ndarray | None, y: np.ndarray | None, first_row: int,
-                 cols: slice) -> None:
-        """Add rows ``first_row:first_row + len`` of the units ``cols`` (z or y may be None)."""
+    def add_block(self, tiles) -> None:
+        """Add one block given as tiles ``(first_row, cols, z, y)`` (z or y may be None).
+
+        The block's power sums are kept across its tiles and turned into moments once.
+        """
+        sums = PowerSums(self.stats.units)
+        for first_row, cols, z, y in tiles:
+            self._add_tile(z, y, first_row, cols, sums)
+        self.stats.moments = self.stats.moments.combine(sums.moments())
+
+    def _add_tile(self, z: np.ndarray | None, y: np.ndarray | None, first_row: int,
+                  cols: slice, sums: PowerSums) -> None:
         rows, width = (z if y is None else y).shape
-        sums = PowerSums(width)
         step = self.slice_rows(width)
         for start in range(0, rows, step):
             stop = min(start + step, rows)
             z_part = None if z is None else z[start:stop]
             y_part = self.output(z_part) if y is None else y[start:stop]
             self._add_slice(z_part, y_part, sums, cols)
-        self.stats.moments.absorb(cols, sums.moments())
         self._add_histograms(z, y, first_row)
 
     def output(self, z: np.ndarray) -> np.ndarray:
@@ -130,7 +137,7 @@ class Accumulator:
         if stats.abs_sum is not None:
             np.abs(x, out=scratch)
             stats.abs_sum[cols] += np.add.reduce(scratch, axis=0)
-        sums.add(x, scratch, valid)
+        sums.add(x, scratch, valid, cols)
 
     def _add_counts(self, z, y, valid, cols: slice) -> None:
         stats, kind = self.stats, self.kind

@@ -31,14 +31,6 @@ class Moments:
         return Moments(self.count.copy(), self.mean.copy(), self.m2.copy(), self.m3.copy(),
                        self.m4.copy())
 
-    def absorb(self, cols: slice, other: "Moments") -> None:
-        """Combine ``other`` (moments of more observations of the units ``cols``) in place."""
-        part = Moments(self.count[cols], self.mean[cols], self.m2[cols], self.m3[cols],
-                       self.m4[cols])
-        combined = part.combine(other)
-        for name in ("count", "mean", "m2", "m3", "m4"):
-            getattr(self, name)[cols] = getattr(combined, name)
-
     def combine(self, other: "Moments") -> "Moments":
         """Pebay's pairwise update: the moments of both sets of observations together."""
         na, nb = self.count, other.count
@@ -81,28 +73,35 @@ class Moments:
 class PowerSums:
     """Sums of (x - K)^p, p = 0..4, per unit, over the slices of one block.
 
-    K is the first slice's column mean, so the deviations stay small and converting to central
-    moments loses nothing; adding a slice is four reductions and no per-slice combination.
+    K is the column mean of the first slice seen for each unit, so the deviations stay small and
+    converting to central moments loses nothing; adding a slice is four reductions and no
+    per-slice combination. Slices may cover a run of units (``cols``), as tiles of a block do.
     """
 
     def __init__(self, units: int):
         self.shift: np.ndarray | None = None
         self.sums = np.zeros((5, units))
+        self._shifted = np.zeros(units, bool)
 
-    def add(self, x: np.ndarray, scratch: np.ndarray, valid: np.ndarray | None = None) -> None:
-        """Add the float64 slice ``x`` (overwritten; ``scratch`` has its shape).
-
-        With ``valid`` (bool, same shape) only True entries count; ``x`` must hold 0 elsewhere.
+    def add(self, x: np.ndarray, scratch: np.ndarray, valid: np.ndarray | None = None,
+            cols: slice = slice(None)) -> None:
+        """Add the float64 slice ``x`` of the units ``cols`` (overwritten; ``scratch`` has its
+        shape). With ``valid`` (bool, same shape) only True entries count; ``x`` must hold 0
+        elsewhere.
         """
-        sums = self.sums
+        sums = self.sums[:, cols]
         if valid is None:
             count = x.shape[0]
         else:
             count = np.add.reduce(valid, axis=0, dtype=np.float64)
         if self.shift is None:
-            self.shift = np.add.reduce(x, axis=0) / np.maximum(count, 1)
+            self.shift = np.zeros(self.sums.shape[1])
+        if not self._shifted[cols].all():
+            self.shift[cols] = np.add.reduce(x, axis=0) / np.maximum(count, 1)
+            self._shifted[cols] = True
+        shift = self.shift[cols]
         sums[0] += count
-        np.subtract(x, self.shift, out=x)
+        np.subtract(x, shift, out=x)
         if valid is not None:
             np.multiply(x, valid, out=x)
         sums[1] += np.add.reduce(x, axis=0)

@@ -223,8 +223,7 @@ def accumulate_layer(
         layer, settings.block_observations, start_sample, stop_sample)
     if tiled is not None:  # uncompressed storage seen in place: no block is copied
         for block_rows, tiles in tiled:
-            for first_row, cols, z, y in tiles:
-                acc.add_tile(z, y, first_row, cols)
+            acc.add_block(tiles)
             stats.rows += block_rows
             if progress is not None:
                 progress(block_rows)
@@ -236,7 +235,7 @@ def accumulate_layer(
             blocks = _read_ahead(blocks, settings.read_ahead_blocks)
         for z, y in blocks:
             block_rows = (y if y is not None else z).shape[0]
-            acc.add_tile(z, y, first_row, slice(0, units))
+            acc.add_block([(first_row, slice(0, units), z, y)])
             stats.rows += block_rows
             first_row += block_rows
             if progress is not None:
