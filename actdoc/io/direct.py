@@ -25,6 +25,8 @@ import numpy as np
 
 Tile = tuple[int, int, int, int, np.ndarray]
 PAGE = mmap.PAGESIZE
+#: Where the OS cannot be told to drop mapped pages, they stay mapped until the map closes.
+DONT_NEED = getattr(mmap, "MADV_DONTNEED", None)
 
 
 class FileMap:
@@ -68,12 +70,12 @@ class FileMap:
     def release(self, offset: int, nbytes: int) -> None:
         """Drop the pages of bytes ``offset:offset + nbytes`` from the map (they stay in the
         page cache); a piece mapped on its own goes when its views do."""
-        if self._map is None or not hasattr(self._map, "madvise"):
+        if self._map is None or DONT_NEED is None:
             return
         first = offset - offset % PAGE
         last = min(len(self._map), -(-(offset + nbytes) // PAGE) * PAGE)
         if last > first:
-            self._map.madvise(mmap.MADV_DONTNEED, first, last - first)
+            self._map.madvise(DONT_NEED, first, last - first)
 
     def close(self) -> None:
         with self._lock:
