@@ -1,4 +1,4 @@
-"""Uncompressed HDF5 datasets read straight from a memory map of the file.
+"""Uncompressed HDF5 datasets (and stored NPZ members) read straight from a map of the file.
 
 h5py copies every block through the HDF5 library under one global lock, at about 2 GB/s on the
 project's machine. An unfiltered dataset's values are plain arrays at known file offsets (one

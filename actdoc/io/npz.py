@@ -31,6 +31,7 @@ import numpy as np
 from actdoc.errors import DumpTooLarge, InvalidDump, UnreadableDump, UnsafeDump, describe
 from actdoc.io import statedict
 from actdoc.io.base import RawDump, RawLayer
+from actdoc.io.direct import FileMap, StorageMap
 from actdoc.model import LAYER_ARRAYS
 
 #: Default largest member, uncompressed, in bytes (8 GiB); ``member_limit_bytes`` changes it.
@@ -129,21 +130,64 @@ def copy_rows(rows: np.ndarray, out: np.ndarray | None) -> np.ndarray:
 
 
 class MappedSource:
-    """ArraySource over a stored member, memory-mapped at its data offset."""
+    """ArraySource over a stored member, seen through a read-only map of the file.
 
-    def __init__(self, path: Path, member: Member, offset: int):
+    A C-ordered 2-D float32 or float64 member in native byte order is one contiguous array in
+    the file, so it offers ``tiles`` and ``release`` like an uncompressed HDF5 dataset
+    (``actdoc.io.direct``): blocks are measured in place and their pages dropped afterwards.
+    Other members are read through ``numpy.memmap``, created on first use.
+    """
+
+    def __init__(self, path: Path, member: Member, offset: int, files: FileMap | None = None):
         self.shape, self.dtype = member.shape, member.dtype
         if path.stat().st_size < offset + member.nbytes:
             raise UnreadableDump(f"{where_of(path, member.key)}: the file ends before the "
                                  f"member's data does; it is truncated")
-        if member.nbytes == 0:
-            self._array = np.empty(member.shape, member.dtype)
-        else:
-            self._array = np.memmap(path, dtype=member.dtype, mode="r", offset=offset,
-                                    shape=member.shape, order="F" if member.fortran else "C")
+        self._path, self._member, self._offset = path, member, offset
+        self._memmap: np.ndarray | None = None
+        self._storage = None
+        dtype = member.dtype
+        if (files is not None and len(member.shape) == 2 and not member.fortran
+                and member.nbytes > 0 and dtype.kind == "f" and dtype.itemsize in (4, 8)
+                and dtype.isnative):
+            self._storage = StorageMap(files, member.shape, dtype, member.shape,
+                                       np.array([[offset]], np.int64))
+
+    @property
+    def _array(self) -> np.ndarray:
+        if self._memmap is None:
+            member = self._member
+            if member.nbytes == 0:
+                self._memmap = np.empty(member.shape, member.dtype)
+            else:
+                self._memmap = np.memmap(self._path, dtype=member.dtype, mode="r",
+                                         offset=self._offset, shape=member.shape,
+                                         order="F" if member.fortran else "C")
+        return self._memmap
 
     def read_samples(self, start: int, stop: int, out: np.ndarray | None = None) -> np.ndarray:
+        stop = min(stop, self.shape[0])
+        if (self._storage is not None and out is not None and out.dtype == self.dtype
+                and out.shape == (stop - start,) + self.shape[1:]):
+            try:
+                return self._storage.fill(start, stop, out)
+            except OSError:  # no address space left for a map: numpy.memmap reads it
+                pass
         return copy_rows(self._array[start:stop], out)
+
+    def tiles(self, start: int, stop: int):
+        """Uncopied views of rows ``start:stop`` (``actdoc.io.direct.Tile``), or None."""
+        if self._storage is None:
+            return None
+        try:
+            return self._storage.tiles(start, min(stop, self.shape[0]))
+        except OSError:
+            return None
+
+    def release(self, start: int, stop: int) -> None:
+        """Drop the mapped pages of rows ``start:stop`` once their tiles are measured."""
+        if self._storage is not None:
+            self._storage.release(start, min(stop, self.shape[0]))
 
     def read_unit(self, unit: int) -> np.ndarray:
         return np.array(self._array[:, unit])
@@ -276,21 +320,23 @@ class NPZReader:
             raise UnreadableDump(f"{describe(path)}: not a readable zip archive; it is truncated "
                                  f"or corrupt ({exc})") from None
         streams: list[StreamedSource] = []
+        files = FileMap(path)
 
         def close() -> None:
             for stream in streams:
                 stream.close()
+            files.close()
             zf.close()
 
         try:
-            layers, probe = self._layers(zf, path, limit, streams)
+            layers, probe = self._layers(zf, path, limit, streams, files)
         except BaseException:
             close()
             raise
         return RawDump(path=path, format="npz", layers=layers, probe_input=probe, closer=close,
                        ordering="position")
 
-    def _layers(self, zf, path, limit, streams) -> tuple[tuple[RawLayer, ...], Any]:
+    def _layers(self, zf, path, limit, streams, files) -> tuple[tuple[RawLayer, ...], Any]:
         members = {}
         for info in zf.infolist():
             if info.filename.endswith(".npy") and not info.is_dir():
@@ -303,8 +349,10 @@ class NPZReader:
                 raise InvalidDump(f"{where_of(path, key)}: dtype {member.dtype} is not a real "
                                   f"number type; expected float16, float32 or float64")
             if member.info.compress_type == zipfile.ZIP_STORED:
+                _, array = split_key(key)
+                mapped = files if array in ("preact", "output") else None
                 return MappedSource(path, member, data_offset(path, member.info)
-                                    + member.header_bytes)
+                                    + member.header_bytes, mapped)
             if member.fortran and len(member.shape) > 1:
                 raise InvalidDump(f"{where_of(path, key)}: a Fortran-ordered array in a "
                                   f"compressed archive cannot be read in blocks of samples; save "

@@ -6,6 +6,8 @@ reader takes), numpy counts and extremes, and scipy.stats for the moments.
 
 from __future__ import annotations
 
+import json
+
 import h5py
 import numpy as np
 import pytest
@@ -118,3 +120,30 @@ def test_layers_that_cannot_be_tiled_take_the_block_path(tmp_path):
         "m": {"activation": "relu", "output": np.maximum(z, 0).reshape(400, 10, 4)}}))
     assert [f.units for f in findings.findings] == [f.units for f in expected.findings]
     assert findings.source.sha256 == ""
+
+
+def write_npz(path, kind, z, y, compressed=False):
+    """An NPZ dump written with numpy alone, from interfaces.md section 2."""
+    meta = np.array(json.dumps({"layers": [{"name": "l", "activation": kind.value}]}))
+    save = np.savez_compressed if compressed else np.savez
+    save(path, **{"l/preact": z, "l/output": y, "actdoc_meta": meta})
+    return path
+
+
+@pytest.mark.parametrize("kind", [K.RELU, K.LOGISTIC])
+def test_stored_npz_members_are_measured_in_place(tmp_path, kind):
+    z, y = arrays(kind, rows=1500, units=90)
+    y[3, 4] = np.inf
+    settings = Settings(block_observations=512)
+    expected = accumulate_layer(dump_from_arrays(
+        {"l": {"activation": kind.value, "preact": z, "output": y}}).layers[0], settings)
+    with open_dump(write_npz(tmp_path / "d.npz", kind, z, y)) as dump:
+        assert paired_tiles(dump.layers[0], 512) is not None
+        assert_same(accumulate_layer(dump.layers[0], settings), expected)
+        source = dump.layers[0].sources["preact"]
+        out = np.empty((100, 90), np.float32)
+        assert np.array_equal(source.read_samples(700, 800, out=out), z[700:800])
+        assert np.array_equal(source.read_unit(7), z[:, 7])
+    with open_dump(write_npz(tmp_path / "c.npz", kind, z, y, compressed=True)) as dump:
+        assert paired_tiles(dump.layers[0], 512) is None  # compressed members stream instead
+        assert_same(accumulate_layer(dump.layers[0], settings), expected)
