@@ -80,3 +80,45 @@ def test_the_limit_bites(big_dump):
     done = subprocess.run([sys.executable, "-c", code, str(big_dump)], capture_output=True,
                           text=True, env=env, timeout=120)
     assert done.returncode != 0 and "MemoryError" in done.stderr + done.stdout
+
+
+PEAK_RSS = """
+import sys
+from actdoc.cli import main
+status = main(["analyze", sys.argv[1]])
+# proc(5): VmHWM is this process image's peak resident set in kB, mapped file pages included
+# (getrusage's ru_maxrss would also carry the forking pytest process's peak across exec).
+peak = next(line.split()[1] for line in open("/proc/self/status") if line.startswith("VmHWM"))
+print("PEAK", peak, status)
+"""
+
+
+@pytest.fixture(scope="module")
+def big_npz(big_dump, tmp_path_factory) -> Path:
+    """The same dump as an uncompressed NPZ archive written by numpy (interfaces.md section 2)."""
+    arrays, layers = {}, []
+    with h5py.File(big_dump, "r") as handle:
+        for name in handle["layers"]:
+            group = handle["layers"][name]
+            layers.append({"name": name, "activation": group.attrs["activation"]})
+            for array in ("preact", "output"):
+                arrays[f"{name}/{array}"] = group[array][()]
+    path = tmp_path_factory.mktemp("npz") / "big.npz"
+    np.savez(path, actdoc_meta=np.array(json.dumps({"layers": layers})), **arrays)
+    return path
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="needs Linux /proc")
+@pytest.mark.parametrize("container", ["hdf5", "npz"])
+def test_peak_resident_memory_stays_far_below_the_dump_size(big_dump, big_npz, container):
+    """Mapped storage must not stay resident: the peak is the interpreter plus a few blocks."""
+    path = big_dump if container == "hdf5" else big_npz
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1")
+    done = subprocess.run([sys.executable, "-c", PEAK_RSS, str(path)], capture_output=True,
+                          text=True, env=env, timeout=240)
+    assert done.returncode == 0, done.stderr[-2000:]
+    peak_kib, status = done.stdout.rsplit("PEAK", 1)[1].split()
+    peak_mb, size_mb = int(peak_kib) / 1024, path.stat().st_size / 2**20
+    assert status == "0" and size_mb > 600
+    assert peak_mb < 300, f"peak {peak_mb:.0f} MB while analysing {size_mb:.0f} MB"
