@@ -147,3 +147,22 @@ def test_stored_npz_members_are_measured_in_place(tmp_path, kind):
     with open_dump(write_npz(tmp_path / "c.npz", kind, z, y, compressed=True)) as dump:
         assert paired_tiles(dump.layers[0], 512) is None  # compressed members stream instead
         assert_same(accumulate_layer(dump.layers[0], settings), expected)
+
+
+def test_preact_and_output_cut_differently_in_later_blocks(tmp_path):
+    """Chunks of 600 and 1000 rows agree on the first 512-row block but not on the second:
+    such blocks are read into buffers; the statistics stay those of the block path."""
+    z, y = arrays(K.LOGISTIC, rows=2100, units=70)
+    path = tmp_path / "d.h5"
+    with h5py.File(path, "w") as f:
+        group = f.create_group("layers/l")
+        group.attrs["activation"] = "logistic"
+        group.create_dataset("preact", data=z, chunks=(600, 70))
+        group.create_dataset("output", data=y, chunks=(1000, 70))
+    settings = Settings(block_observations=512)
+    expected = accumulate_layer(dump_from_arrays(
+        {"l": {"activation": "logistic", "preact": z, "output": y}}).layers[0], settings)
+    with open_dump(path) as dump:
+        blocks = list(paired_tiles(dump.layers[0], 512))
+        assert len(blocks[0][1]) == 1 and blocks[1][1][0][1] == slice(0, 70)
+        assert_same(accumulate_layer(dump.layers[0], settings), expected)
