@@ -202,7 +202,9 @@ def cmd_compare(args: argparse.Namespace) -> int:
 
     if len(args.dumps) < 2:
         raise ActdocError("actdoc compare needs at least two dumps")
-    series = [_analyse(args, f"analysing {Path(p).name}", Path(p)) for p in args.dumps]
+    # The comparison names each dump by its file and never shows its digest: no hashing.
+    series = [_analyse(args, f"analysing {Path(p).name}", Path(p), digest=False)
+              for p in args.dumps]
     comparison = compare_series(series)
     if args.format == "json":
         sys.stdout.write(json.dumps(comparison_document(comparison), indent=2) + "\n")
