@@ -33,12 +33,14 @@ def arrays(kind: K, rows=2100, units=300, seed=5):
 
 
 def write(path, kind, z, y, chunks=(512, 128), which=("preact", "output")):
+    """One layer 'l' with plain h5py; ``chunks`` is one shape, or one per array name."""
     with h5py.File(path, "w") as f:
         group = f.create_group("layers/l")
         group.attrs["activation"] = kind.value
         for name, values in (("preact", z), ("output", y)):
             if name in which:
-                group.create_dataset(name, data=values, chunks=chunks)
+                shape = chunks[name] if isinstance(chunks, dict) else chunks
+                group.create_dataset(name, data=values, chunks=shape)
     return path
 
 
@@ -102,12 +104,10 @@ def test_tiled_statistics_match_numpy_and_scipy(tmp_path):
 
 def test_layers_that_cannot_be_tiled_take_the_block_path(tmp_path):
     z, y = arrays(K.RELU, rows=400, units=40)
-    path = tmp_path / "mixed.h5"
-    with h5py.File(path, "w") as f:
-        group = f.create_group("layers/l")
-        group.attrs["activation"] = "relu"
-        group.create_dataset("preact", data=z, chunks=(100, 20))
-        group.create_dataset("output", data=y, chunks=(50, 40))  # a different tiling
+    # preact and output cut into different tiles, and a spatial layer
+    path = write(tmp_path / "mixed.h5", K.RELU, z, y,
+                 chunks={"preact": (100, 20), "output": (50, 40)})
+    with h5py.File(path, "a") as f:
         spatial = f.create_group("layers/m")
         spatial.attrs["activation"] = "relu"
         spatial.create_dataset("output", data=np.maximum(z, 0).reshape(400, 10, 4))
@@ -153,12 +153,8 @@ def test_preact_and_output_cut_differently_in_later_blocks(tmp_path):
     """Chunks of 600 and 1000 rows agree on the first 512-row block but not on the second:
     such blocks are read into buffers; the statistics stay those of the block path."""
     z, y = arrays(K.LOGISTIC, rows=2100, units=70)
-    path = tmp_path / "d.h5"
-    with h5py.File(path, "w") as f:
-        group = f.create_group("layers/l")
-        group.attrs["activation"] = "logistic"
-        group.create_dataset("preact", data=z, chunks=(600, 70))
-        group.create_dataset("output", data=y, chunks=(1000, 70))
+    path = write(tmp_path / "d.h5", K.LOGISTIC, z, y,
+                 chunks={"preact": (600, 70), "output": (1000, 70)})
     settings = Settings(block_observations=512)
     expected = accumulate_layer(dump_from_arrays(
         {"l": {"activation": "logistic", "preact": z, "output": y}}).layers[0], settings)
