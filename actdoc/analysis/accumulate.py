@@ -70,11 +70,11 @@ class Accumulator:
         for start in range(0, rows, step):
             stop = min(start + step, rows)
             z_part = None if z is None else z[start:stop]
-            y_part = self.output(z_part) if y is None else y[start:stop]
+            y_part = self._output(z_part) if y is None else y[start:stop]
             self._add_slice(z_part, y_part, sums, cols)
         self._add_histograms(z, y, first_row)
 
-    def output(self, z: np.ndarray) -> np.ndarray:
+    def _output(self, z: np.ndarray) -> np.ndarray:
         with np.errstate(over="ignore", invalid="ignore"):
             return self.neuron.output(z)
 
@@ -84,7 +84,7 @@ class Accumulator:
             zs = sampled_rows(z, first_row, self.stride)
             if zs.shape[0] == 0:
                 return
-            ys = self.output(zs) if y is None else sampled_rows(y, first_row, self.stride)
+            ys = self._output(zs) if y is None else sampled_rows(y, first_row, self.stride)
             finite = np.isfinite(zs) & np.isfinite(ys)
             hist["preact"] += self.grids["preact"].count(zs[finite])
         else:
@@ -133,7 +133,7 @@ class Accumulator:
                 z = np.where(valid, z, 0.0)
         self._add_counts(z, y, valid, cols)
         if stats.gain_sum is not None:
-            self.add_gain(z, y, valid, cols)
+            self._add_gain(z, y, valid, cols)
         if stats.abs_sum is not None:
             np.abs(x, out=scratch)
             stats.abs_sum[cols] += np.add.reduce(scratch, axis=0)
@@ -172,7 +172,7 @@ class Accumulator:
                 np.abs(source, out=dist)
             self._count(stats.linear[cols], np.less_equal, dist, half, valid)
 
-    def add_gain(self, z, y, valid, cols: slice) -> None:
+    def _add_gain(self, z, y, valid, cols: slice) -> None:
         """Add f'(z) per unit (from z, or for softplus from its output y)."""
         if z is not None:
             gain = self.neuron.gain(z)
