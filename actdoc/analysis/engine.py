@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
+from dataclasses import replace
 from functools import reduce
 from pathlib import Path
 from typing import Callable
@@ -26,7 +27,7 @@ from actdoc.analysis.summary import (
     unit_table,
     weight_summary,
 )
-from actdoc.digest import file_sha256
+from actdoc.digest import BackgroundDigest, file_sha256
 from actdoc.model import (
     Dump,
     Finding,
@@ -232,18 +233,13 @@ def analyze(dump: Dump, settings: Settings | None = None,
     if progress is not None:
         progress(0.0)
     hashing = None
-    if source is None and not digest:
+    if source is None:
         source = source_info(dump, digest=False)
-    if source is None:  # hashlib releases the GIL: hash the file while the layers are measured
-        hashing = ThreadPoolExecutor(max_workers=1, thread_name_prefix="actdoc-sha256")
-        pending_source = hashing.submit(source_info, dump)
-    try:
-        measured = _measure_all(dump, settings, progress, workers)
-        if hashing is not None:
-            source = pending_source.result()
-    finally:
-        if hashing is not None:
-            hashing.shutdown(wait=False, cancel_futures=True)
+        if digest and Path(dump.path).is_file():  # hashed beside the pass (hashlib frees the GIL)
+            hashing = BackgroundDigest(dump.path)
+    measured = _measure_all(dump, settings, progress, workers)
+    if hashing is not None:
+        source = replace(source, sha256=hashing.result())
     findings = findings_from_stats(dump, measured, settings, source)
     if progress is not None:
         progress(1.0)
