@@ -1,6 +1,6 @@
 """Planted pathologies over every kind, dtype, layout and array set: precision and recall 1.0.
 
-Ground truth comes from the planted roles (see analysis_planting.py); the decision edges they
+Ground truth comes from the planted roles (see tests/support/planting.py); the decision edges they
 are planted around are the defaults of interfaces.md section 4 (ln 99, atanh 0.99, 1%, 95%).
 """
 
@@ -11,7 +11,7 @@ from actdoc.analysis import analyze
 from actdoc.io.memory import dump_from_arrays
 from actdoc.model import ActivationKind as K
 from actdoc.model import LayerStatus, Severity
-from analysis_planting import ROLES, plant
+from tests.support.planting import ROLES, plant
 
 EXCLUSIVE = ("dead", "dormant", "saturated", "near_binary", "linear_regime", "constant")
 UNIT_CHECKS = EXCLUSIVE + ("non_finite",)

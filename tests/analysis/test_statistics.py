@@ -48,7 +48,7 @@ def make_layer(kind=K.TANH, dtype=np.float32, rows=3001, units=7, spatial=(), se
     rng = np.random.default_rng(seed)
     z = (rng.normal(0.3, 2.0, size=(rows, units) + spatial)).astype(dtype)
     z.reshape(-1)[::97] = 0.0
-    from analysis_planting import reference_output
+    from tests.support.planting import reference_output
     y = reference_output(kind, z.astype(np.float64), rng).astype(dtype)
     return dump_from_arrays({"l": {"activation": kind.value, "preact": z, "output": y}}).layers[0]
 

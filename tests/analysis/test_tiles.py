@@ -23,7 +23,7 @@ FIELDS = ("nonfinite", "minimum", "maximum", "active", "low", "high", "linear")
 
 
 def arrays(kind: K, rows=2100, units=300, seed=5):
-    from analysis_planting import reference_output
+    from tests.support.planting import reference_output
 
     rng = np.random.default_rng(seed)
     z = rng.normal(0.2, 3.0, size=(rows, units)).astype(np.float32)

@@ -100,21 +100,45 @@ def test_raw_inputs_saturate_tanh_units_where_standardised_inputs_do_not(finding
     assert share(checked, "hidden1", "saturated") < 0.1
 
 
+#: Demos trained at a learning rate where training is chaotic: a numpy release that rounds exp or
+#: tanh differently in the last bit sends the weights elsewhere (measured 2026-12-03: numpy 2.4.6
+#: against the numpy the dumps were first written with moved every weight of these two, while the
+#: other eight stayed bit-identical). For these the regenerated dump must show the same pathology,
+#: each layer's check shares within 0.1 of the committed dump's (the drift seen was 0.03).
+CHAOTIC_DEMOS = {"logistic_near_binary.h5", "tanh_raw_inputs.h5"}
+
+
+def same_arrays(fresh_path, committed_path) -> None:
+    with h5py.File(fresh_path) as fresh, h5py.File(committed_path) as committed:
+        assert list(fresh["layers"]) == list(committed["layers"])
+        for layer in committed["layers"]:
+            group, other = committed["layers"][layer], fresh["layers"][layer]
+            assert dict(group.attrs) == dict(other.attrs)
+            assert sorted(group) == sorted(other)
+            for array in group:
+                # Equal to float32 rounding; a larger gap means the recipes changed and
+                # the committed dumps must be regenerated with write_all.
+                np.testing.assert_allclose(
+                    other[array][...], group[array][...], rtol=1e-5, atol=1e-6,
+                    err_msg=f"{committed_path.name}: {layer}/{array} differs")
+        np.testing.assert_allclose(fresh["probe/input"][...], committed["probe/input"][...],
+                                   rtol=1e-6)
+
+
+def same_pathology(fresh_path, committed_path) -> None:
+    fresh, committed = analyze(open_dump(fresh_path)), analyze(open_dump(committed_path))
+    assert [layer.name for layer in fresh.layers] == [layer.name for layer in committed.layers]
+    for now, then in zip(fresh.layers, committed.layers):
+        for check in set(now.fractions) | set(then.fractions):
+            gap = abs(now.fractions.get(check, 0.0) - then.fractions.get(check, 0.0))
+            assert gap <= 0.1, f"{committed_path.name}: {now.name} {check} moved by {gap:.2f}"
+
+
 def test_write_all_regenerates_the_committed_dumps(tmp_path):
     written = write_all(tmp_path)
     assert [p.name for p in written] == [p.name for p in bundled_dumps()]
     for fresh_path, committed_path in zip(written, bundled_dumps()):
-        with h5py.File(fresh_path) as fresh, h5py.File(committed_path) as committed:
-            assert list(fresh["layers"]) == list(committed["layers"])
-            for layer in committed["layers"]:
-                group, other = committed["layers"][layer], fresh["layers"][layer]
-                assert dict(group.attrs) == dict(other.attrs)
-                assert sorted(group) == sorted(other)
-                for array in group:
-                    # Equal to float32 rounding; a larger gap means the recipes changed and
-                    # the committed dumps must be regenerated with write_all.
-                    np.testing.assert_allclose(
-                        other[array][...], group[array][...], rtol=1e-5, atol=1e-6,
-                        err_msg=f"{committed_path.name}: {layer}/{array} differs")
-            np.testing.assert_allclose(fresh["probe/input"][...], committed["probe/input"][...],
-                                       rtol=1e-6)
+        if committed_path.name in CHAOTIC_DEMOS:
+            same_pathology(fresh_path, committed_path)
+        else:
+            same_arrays(fresh_path, committed_path)

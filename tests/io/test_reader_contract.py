@@ -97,7 +97,7 @@ def test_hdf5_after_userblock(tmp_path, layers):
 
 
 def test_extension_does_not_decide_format(tmp_path, layers):
-    from tests.io.conftest import write_plain_npz
+    from tests.support.io import write_plain_npz
 
     path = tmp_path / "looks_like.h5"
     with open(path, "wb") as handle:

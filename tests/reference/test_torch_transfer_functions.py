@@ -79,11 +79,11 @@ def allowance(kind: K, z: np.ndarray, reference: np.ndarray, gain: bool) -> np.n
 
 
 def assert_close(kind: K, z: np.ndarray, ours: np.ndarray, reference: np.ndarray,
-                 gain: bool) -> None:
+                 gain: bool, reference_error: np.ndarray | float = 0.0) -> None:
     assert ours.dtype == z.dtype, f"{kind.value}: actdoc changed {z.dtype} to {ours.dtype}"
     assert np.isfinite(reference).all(), f"{kind.value}: torch itself gave non-finite values"
     difference = np.abs(ours.astype(np.float64) - reference.astype(np.float64))
-    allowed = allowance(kind, z, reference, gain)
+    allowed = allowance(kind, z, reference, gain) + reference_error
     bad = np.flatnonzero(~(difference <= allowed))
     what = "f'" if gain else "f"
     assert bad.size == 0, (
@@ -97,9 +97,15 @@ def test_output_and_gain_match_torch(kind, dtype):
     # PyTorch: torch.nn.functional / torch.sigmoid / torch.tanh for f, torch.autograd for f'
     z = Z_GRID.astype(dtype)
     value, gain = torch_value_and_gain(TORCH_FUNCTIONS[kind], z)
+    # torch's own rounding in this dtype, measured against its float64 result, widens the
+    # allowance: torch 2.13's float32 GELU is off by up to 6.6e-7 at z = -3.4 (its float64
+    # value and scipy's z * ndtr(z) agree there, and actdoc's float32 is within 1.5e-7 of them)
+    exact_value, exact_gain = torch_value_and_gain(TORCH_FUNCTIONS[kind], z.astype(np.float64))
+    value_error = np.abs(value.astype(np.float64) - exact_value)
+    gain_error = np.abs(gain.astype(np.float64) - exact_gain)
     neuron = Neuron(kind)
-    assert_close(kind, z, neuron.output(z), value, gain=False)
-    assert_close(kind, z, neuron.gain(z), gain, gain=True)
+    assert_close(kind, z, neuron.output(z), value, gain=False, reference_error=value_error)
+    assert_close(kind, z, neuron.gain(z), gain, gain=True, reference_error=gain_error)
 
 
 @pytest.mark.parametrize("dtype", DTYPES, ids=lambda d: np.dtype(d).name)

@@ -31,11 +31,7 @@ def test_tiny_benchmark_run_writes_a_complete_result(tmp_path):
 
 def test_peak_memory_gauge_sees_an_allocation_of_known_size():
     """A child touching 200 MiB must report a peak of at least that, and not the parent's."""
-    sys.path.insert(0, str(BENCHMARKS))
-    try:
-        from measure import run_measured
-    finally:
-        sys.path.remove(str(BENCHMARKS))
+    from benchmarks.measure import run_measured
     ballast = b"x" * (300 << 20)  # resident in the parent; must not leak into the figure
     code = "import sys; b = bytearray(200 << 20); b[::4096] = b'x' * len(b[::4096])"
     run = run_measured("alloc", [sys.executable, "-S", "-c", code])

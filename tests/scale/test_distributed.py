@@ -10,7 +10,7 @@ from actdoc.analysis import Settings, accumulate_layer, analyze
 from actdoc.io import open_dump
 from actdoc.model import to_observations
 
-from .conftest import DEAD_UNITS, SATURATED_UNITS, SHARD_BOUNDS
+from tests.support.scale import DEAD_UNITS, SATURATED_UNITS, SHARD_BOUNDS
 
 distributed = pytest.importorskip("distributed")
 from actdoc.cluster import analyze_shards  # noqa: E402

@@ -73,7 +73,7 @@ def test_npz_members_split_only_where_they_can_be_read_from_anywhere(tmp_path, m
     from actdoc.analysis import engine
     from actdoc.io.writer import write_npz
 
-    from .conftest import recording
+    from tests.support.scale import recording
 
     path = write_npz(tmp_path / "run.npz", recording(), compress=compress)
     settings = Settings(block_observations=1024)

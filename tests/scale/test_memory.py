@@ -13,7 +13,6 @@ import h5py
 import numpy as np
 import pytest
 
-BENCHMARKS = Path(__file__).resolve().parents[2] / "benchmarks"
 #: Address-space limit of the analysing process. numpy and h5py imports need about 115 MB of
 #: it with one BLAS thread (measured on this project's machines); each measuring thread keeps a
 #: few 16 MiB blocks and float64 row slices on top, and glibc reserves address space for a
@@ -34,11 +33,7 @@ sys.exit(main(["analyze", sys.argv[2], "--format", "json"]))
 
 @pytest.fixture(scope="module")
 def big_dump(tmp_path_factory) -> Path:
-    sys.path.insert(0, str(BENCHMARKS))
-    try:
-        from dumps import ensure_bench_dump
-    finally:
-        sys.path.remove(str(BENCHMARKS))
+    from benchmarks.dumps import ensure_bench_dump
     return ensure_bench_dump(tmp_path_factory.mktemp("big"), DUMP_GB).path
 
 

@@ -9,7 +9,7 @@ from actdoc.errors import InvalidDump, UnreadableDump
 from actdoc.io.shards import is_sharded, open_shards, shard_layout
 from actdoc.io.writer import write_dump
 
-from .conftest import SHARD_BOUNDS, recording, sliced
+from tests.support.scale import SHARD_BOUNDS, recording, sliced
 
 
 def test_folder_gives_shards_in_natural_order(sharded):

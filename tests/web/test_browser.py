@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 
 from actdoc.web import create_app
-from conftest import wait_until_done
+from tests.support.web import wait_until_done
 
 pytestmark = pytest.mark.browser
 

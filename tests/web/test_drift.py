@@ -15,7 +15,7 @@ from actdoc.io.writer import write_dump
 from actdoc.web import create_app
 from actdoc.web.drift import short_labels
 from actdoc.web.embed import first_sentence
-from conftest import DEAD_UNITS, planted_layers, post_file, wait_until_done
+from tests.support.web import DEAD_UNITS, planted_layers, post_file, wait_until_done
 
 #: Units of hidden1 planted dead in the later checkpoint on top of DEAD_UNITS.
 NEWLY_DEAD = (15, 18, 22)

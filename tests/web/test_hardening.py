@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from actdoc import workspace as workspace_module
 from actdoc.workspace import Workspace
-from conftest import post_file
+from tests.support.web import post_file
 
 #: Linux file systems (ext4, tmpfs, xfs) cap one path component at 255 bytes (common practice:
 #: NAME_MAX in <limits.h>); a CJK character takes 3 bytes in UTF-8.

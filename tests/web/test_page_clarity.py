@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from actdoc.io.writer import write_dump
-from conftest import post_file, wait_until_done
+from tests.support.web import post_file, wait_until_done
 
 
 def test_uneven_bins_are_labelled_as_a_density_not_per_unit(client, ready_dump):

@@ -10,7 +10,7 @@ from scipy.special import logit
 
 from actdoc.model import CAVEAT
 from actdoc.web.embed import embed_json
-from conftest import DEAD_UNITS, SAMPLES, planted_layers
+from tests.support.web import DEAD_UNITS, SAMPLES, planted_layers
 
 
 def test_home_lists_dumps_with_verdicts_and_an_upload_area(client, ready_dump):

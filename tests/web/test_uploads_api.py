@@ -9,7 +9,7 @@ import math
 from scipy.special import logit
 
 from actdoc.web import create_app
-from conftest import (DEAD_UNITS, SATURATED_UNITS, TEST_UPLOAD_LIMIT, planted_layers,
+from tests.support.web import (DEAD_UNITS, SATURATED_UNITS, TEST_UPLOAD_LIMIT, planted_layers,
                       post_file, wait_until_done)
 
 

@@ -10,7 +10,7 @@ import pytest
 
 from actdoc.io.writer import write_dump
 from actdoc.web import create_app
-from conftest import post_file, wait_until_done
+from tests.support.web import post_file, wait_until_done
 
 SAMPLES = 200
 #: Tanh saturates where |tanh z| > 0.99 (the default level): |z| > atanh(0.99) = ln(199) / 2
