@@ -28,7 +28,7 @@ LAYER_ARRAYS = ACTIVATION_ARRAYS + PARAMETER_ARRAYS
 
 
 class ActivationKind(str, Enum):
-    """The transfer functions actdoc knows (interfaces.md section 1)."""
+    """The transfer functions actdoc knows (docs/contract.md section 1)."""
 
     LINEAR = "linear"
     THRESHOLD = "threshold"

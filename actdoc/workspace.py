@@ -106,7 +106,7 @@ class DumpRecord:
         return self.status == "ready"
 
     def to_dict(self) -> dict:
-        """The object the HTTP API returns for a dump (interfaces.md section 6, with extras)."""
+        """The object the HTTP API returns for a dump (docs/contract.md section 6, with extras)."""
         verdicts = None
         if self.ready:
             verdicts = {"critical": self.critical, "warning": self.warning,

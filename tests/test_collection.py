@@ -29,3 +29,19 @@ def test_every_way_of_starting_pytest_collects_the_same_tests():
     assert len(plain) > 400
     assert collected([str(console)]) == plain
     assert collected([sys.executable, "-m", "pytest", "--import-mode=importlib"]) == plain
+
+
+def test_the_project_cites_only_its_own_contract():
+    """The contract lives in docs/contract.md; no file cites a document outside the repository."""
+    tracked = subprocess.run(["git", "ls-files"], cwd=ROOT, capture_output=True, text=True).stdout
+    offenders = []
+    for name in tracked.splitlines():
+        path = ROOT / name
+        if path.suffix not in {".py", ".md", ".html", ".js", ".css", ".toml", ".txt"}:
+            continue
+        if path.name == "test_collection.py":
+            continue
+        if "interfaces.md" in path.read_text(encoding="utf-8", errors="replace"):
+            offenders.append(name)
+    assert offenders == []
+    assert (ROOT / "docs" / "contract.md").read_text().count("\n## ") >= 6

@@ -77,7 +77,7 @@ def order_layers(raw: RawDump) -> list[RawLayer]:
     return sorted(layers, key=lambda layer: layer.position)
 
 
-#: Kinds whose outputs may be stored as integers or booleans (interfaces.md section 1).
+#: Kinds whose outputs may be stored as integers or booleans (docs/contract.md section 1).
 BINARY_KINDS = frozenset({ActivationKind.THRESHOLD, ActivationKind.STOCHASTIC_BINARY})
 
 #: Attributes that must be numbers, with what they mean (for the error sentence).

@@ -1,4 +1,4 @@
-"""The HDF5 reader (interfaces.md section 1, and section 3 for state-dict weight files).
+"""The HDF5 reader (docs/contract.md section 1, and section 3 for state-dict weight files).
 
 Datasets are read lazily: blocks of samples go straight into the caller's reused buffer with
 ``Dataset.read_direct``. A dump must be self-contained, so datasets reached through external links,

@@ -1,4 +1,4 @@
-"""The NPZ reader (interfaces.md section 2, and section 3 for state-dict weight archives).
+"""The NPZ reader (docs/contract.md section 2, and section 3 for state-dict weight archives).
 
 An NPZ file is a zip of ``.npy`` members. Nothing is unpickled: a member whose header declares an
 object dtype is refused before its data is touched. Each member's size is checked twice before it

@@ -1,4 +1,4 @@
-"""Weight archives in state-dict style (interfaces.md section 3), shared by both readers.
+"""Weight archives in state-dict style (docs/contract.md section 3), shared by both readers.
 
 Training frameworks save parameters under dotted names, ``<layer>.weight`` and ``<layer>.bias``.
 Such a file holds no activations, so every layer is weights-only; kinds come from the

@@ -1,6 +1,6 @@
 """Writing dumps: the public API for producing files actdoc reads (docs/dump-layout.md).
 
-``DumpWriter`` writes the HDF5 layout of interfaces.md section 1 incrementally: declare a layer
+``DumpWriter`` writes the HDF5 layout of docs/contract.md section 1 incrementally: declare a layer
 with ``add_layer`` and ``append`` blocks of observations as a model runs over the probe batch.
 Activation datasets are resizable and chunked ``(1024 samples, 256 units)`` (whole spatial maps
 per chunk, fewer samples for spatial layers), which suits both forward passes in blocks of samples
@@ -240,7 +240,7 @@ def write_dump(path: str | Path, layers: Mapping[str, Mapping[str, Any]],
 def write_npz(path: str | Path, layers: Mapping[str, Mapping[str, Any]],
               probe_input: Any = None, *, compress: bool = False,
               overwrite: bool = False) -> Path:
-    """Write the same mapping as an NPZ dump (interfaces.md section 2) with ``actdoc_meta``
+    """Write the same mapping as an NPZ dump (docs/contract.md section 2) with ``actdoc_meta``
     recording the order and attributes; ``compress`` deflates the members."""
     path = Path(path)
     arrays: dict[str, np.ndarray] = {}

@@ -1,4 +1,4 @@
-"""The findings document (interfaces.md section 4) and the small helpers every format shares."""
+"""The findings document (docs/contract.md section 4) and the small helpers every format shares."""
 
 from __future__ import annotations
 
@@ -57,7 +57,7 @@ def finding_entry(finding: Finding) -> dict[str, Any]:
 
 
 def to_document(findings: Findings) -> dict[str, Any]:
-    """The findings document exactly as interfaces.md section 4 fixes it, plus extensions
+    """The findings document exactly as docs/contract.md section 4 fixes it, plus extensions
     (``caveat``, ``verdict``, ``settings``, and per-layer ``output_scale``, ``gradient_gain``,
     ``activation_note``)."""
     source = findings.source

@@ -1,4 +1,4 @@
-"""The HTTP API of interfaces.md section 6, and the upload step the pages share with it."""
+"""The HTTP API of docs/contract.md section 6, and the upload step the pages share with it."""
 
 from __future__ import annotations
 

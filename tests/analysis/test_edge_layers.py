@@ -1,6 +1,6 @@
 """Layers at the edges of what a probe batch can hold: one sample, values near the float limits.
 
-Expected verdicts are the rules of interfaces.md section 4 applied with numpy to the planted
+Expected verdicts are the rules of docs/contract.md section 4 applied with numpy to the planted
 arrays; the statistics are compared with numpy's own mean and standard deviation.
 """
 
@@ -21,7 +21,7 @@ def checks_by_unit(findings, layer):
 def test_one_observation_cannot_show_a_constant_output():
     """With one observation per unit a range is zero by construction, so `constant` would name
     every unit; variation needs at least two observations (common practice). `dead` still
-    applies: interfaces.md section 4, never active on any sample."""
+    applies: docs/contract.md section 4, never active on any sample."""
     z = np.array([[1.5, -0.5, 2.0, 0.25]], np.float32)
     findings = analyze(dump_from_arrays({"fc": {"activation": "relu", "preact": z,
                                                 "output": np.maximum(z, 0)}}), workers=1)
@@ -40,7 +40,7 @@ def test_two_equal_observations_are_a_constant_output():
 
 
 def test_one_sample_of_a_spatial_layer_has_many_observations():
-    """Each spatial position is an observation (interfaces.md section 1), so one sample of a
+    """Each spatial position is an observation (docs/contract.md section 1), so one sample of a
     convolution can still show a constant channel."""
     z = np.zeros((1, 2, 3, 3), np.float32)
     z[0, 1] = np.arange(9).reshape(3, 3)
@@ -68,7 +68,7 @@ def test_values_near_the_float32_limit_measure_without_warnings():
 
 def test_float64_values_whose_squares_overflow_still_explode():
     """Outputs near 1e200 square past the float64 range, so their RMS is infinite; the layer is
-    far past `signal_limit` times the first layer's RMS (interfaces.md section 4,
+    far past `signal_limit` times the first layer's RMS (docs/contract.md section 4,
     exploding_signal), and the overflow warns nothing on stderr."""
     rng = np.random.default_rng(5)
     first = rng.normal(size=(200, 4))

@@ -109,7 +109,7 @@ def test_not_invertible_kinds_say_so():
 
 
 def test_threshold_and_stochastic_units():
-    # a threshold unit fires when z > theta, the same as bias = -theta (interfaces.md section 1)
+    # a threshold unit fires when z > theta, the same as bias = -theta (docs/contract.md section 1)
     z = np.array([-1.0, 0.4, 0.5, 0.6, 2.0])
     assert Neuron(K.THRESHOLD, threshold=0.5).output(z).tolist() == [0, 0, 0, 1, 1]
     assert Neuron(K.THRESHOLD).output(z - 0.5).tolist() == [0, 0, 0, 1, 1]

@@ -1,7 +1,7 @@
 """Planted pathologies over every kind, dtype, layout and array set: precision and recall 1.0.
 
 Ground truth comes from the planted roles (see tests/support/planting.py); the decision edges they
-are planted around are the defaults of interfaces.md section 4 (ln 99, atanh 0.99, 1%, 95%).
+are planted around are the defaults of docs/contract.md section 4 (ln 99, atanh 0.99, 1%, 95%).
 """
 
 import numpy as np

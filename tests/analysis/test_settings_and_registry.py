@@ -13,7 +13,7 @@ DOCS = Path(__file__).resolve().parents[2] / "docs" / "checks.md"
 
 
 def test_defaults_are_the_interface_values():
-    # interfaces.md section 4: ln 99 / atanh 0.99 edges, 1% dormant, 95% saturated
+    # docs/contract.md section 4: ln 99 / atanh 0.99 edges, 1% dormant, 95% saturated
     s = Settings()
     assert s.logistic_saturation_margin == 0.01 and s.tanh_saturation_level == 0.99
     assert s.dormant_active_share == 0.01 and s.saturated_share == 0.95

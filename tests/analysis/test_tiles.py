@@ -123,7 +123,7 @@ def test_layers_that_cannot_be_tiled_take_the_block_path(tmp_path):
 
 
 def write_npz(path, kind, z, y, compressed=False):
-    """An NPZ dump written with numpy alone, from interfaces.md section 2."""
+    """An NPZ dump written with numpy alone, from docs/contract.md section 2."""
     meta = np.array(json.dumps({"layers": [{"name": "l", "activation": kind.value}]}))
     save = np.savez_compressed if compressed else np.savez
     save(path, **{"l/preact": z, "l/output": y, "actdoc_meta": meta})

@@ -1,6 +1,6 @@
-"""The command line of interfaces.md section 5: formats, the pipeline gate and exit statuses.
+"""The command line of docs/contract.md section 5: formats, the pipeline gate and exit statuses.
 
-Dumps here are written with plain h5py straight from interfaces.md section 1, so the command is
+Dumps here are written with plain h5py straight from docs/contract.md section 1, so the command is
 checked against the published layout rather than against actdoc's own writer. Ground truth for
 the planted units is by construction: a relu unit whose total input is negative on every sample
 never fires (the definition of a dead unit, common practice).
@@ -28,7 +28,7 @@ def _write(path, dead=(), units=8, samples=256, seed=0):
     z = rng.normal(0.0, 1.0, (samples, units)).astype(np.float32)
     z[:, list(dead)] = -np.abs(z[:, list(dead)]) - 0.5
     with h5py.File(path, "w") as f:
-        # Creation order is tracked, so it is the forward order (interfaces.md section 1).
+        # Creation order is tracked, so it is the forward order (docs/contract.md section 1).
         layers = f.create_group("layers", track_order=True)
         g = layers.create_group("hidden")
         g.attrs["activation"] = "relu"

@@ -4,7 +4,7 @@ Each dump of the series plants its own set of dead rectified units and saturated
 units. The references use the definitions, not actdoc: a ReLU unit whose total input is never
 positive on any sample never fires (dead; common practice), and a logistic unit whose total
 input stays above ln 99 = scipy.special.logit(0.99) has every output above 0.99, saturated at
-the high asymptote (interfaces.md section 4's zone). Unit state changes between two dumps are
+the high asymptote (docs/contract.md section 4's zone). Unit state changes between two dumps are
 then plain set differences, and each share is a count over the layer's units.
 """
 

@@ -1,7 +1,7 @@
 """The committed demo dumps: each develops its pathology (as actdoc's own analysis finds it),
 the baseline stays healthy, and ``write_all`` regenerates exactly what is committed.
 
-The pass marks come from the findings thresholds of interfaces.md section 4 and
+The pass marks come from the findings thresholds of docs/contract.md section 4 and
 actdoc/analysis/defaults.py (10% of a layer for a warning, 50% for critical: common practice).
 """
 

@@ -1,7 +1,7 @@
 """Odd but possible files reach the command line as one sentence and exit status 2.
 
 Each file is built with plain h5py, numpy or the operating system (a FIFO), breaking one rule of
-interfaces.md sections 1-2 in a way the ordinary validation cases do not cover. The rule tested
+docs/contract.md sections 1-2 in a way the ordinary validation cases do not cover. The rule tested
 is the project's own (every input error is one sentence, never a traceback or a hang).
 """
 
@@ -78,7 +78,7 @@ def test_order_too_large_for_a_float_is_one_sentence(tmp_path, capsys):
 
 @pytest.mark.parametrize("value", [True, np.bool_(False)], ids=["python", "numpy"])
 def test_boolean_order_is_not_an_integer(tmp_path, value):
-    """A flag is not a position in the forward pass (interfaces.md section 1: an integer)."""
+    """A flag is not a position in the forward pass (docs/contract.md section 1: an integer)."""
     path = tmp_path / "flag.h5"
     with h5py.File(path, "w") as f:
         group = f.create_group("layers/fc")
@@ -145,7 +145,7 @@ def test_a_dead_layer_compressed_with_gzip_is_still_read(tmp_path):
 
 
 def test_an_npz_layer_with_an_empty_name_is_refused(tmp_path):
-    # interfaces.md section 2: arrays are named "<layer>/preact"; "/preact" names no layer.
+    # docs/contract.md section 2: arrays are named "<layer>/preact"; "/preact" names no layer.
     import numpy as np
 
     from actdoc.errors import InvalidDump

@@ -1,4 +1,4 @@
-"""Forward order of layers, by the rules of interfaces.md sections 1 and 2."""
+"""Forward order of layers, by the rules of docs/contract.md sections 1 and 2."""
 
 from __future__ import annotations
 
@@ -74,7 +74,7 @@ def test_npz_order_attribute_in_meta_wins(tmp_path):
 
 
 def test_hdf5_state_dict_keeps_tracked_creation_order(tmp_path):
-    # interfaces.md section 3: weight archives are read "in forward order of appearance"; an
+    # docs/contract.md section 3: weight archives are read "in forward order of appearance"; an
     # HDF5 file whose root group tracks creation order keeps it even where names sort otherwise.
     path = tmp_path / "weights.h5"
     with h5py.File(path, "w", track_order=True) as f:

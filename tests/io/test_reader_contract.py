@@ -1,6 +1,6 @@
 """Every reader keeps the same contract: what was stored comes back, in forward order.
 
-Files come from actdoc's own writer and from plain h5py / numpy code that follows interfaces.md
+Files come from actdoc's own writer and from plain h5py / numpy code that follows docs/contract.md
 sections 1 and 2 directly; both must read identically. Expected values are numpy's own
 reshapes and slices of the stored arrays (numpy as the outside reference).
 """

@@ -1,6 +1,6 @@
 """Bad input: one sentence naming the file, the layer and the array, as an actdoc.errors class.
 
-Each file is built with plain h5py or numpy, breaking one rule of interfaces.md sections 1-2.
+Each file is built with plain h5py or numpy, breaking one rule of docs/contract.md sections 1-2.
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""The writer produces the layout of interfaces.md sections 1 and 2, checked with plain h5py
+"""The writer produces the layout of docs/contract.md sections 1 and 2, checked with plain h5py
 and numpy (the outside readers), and never clobbers an existing file."""
 
 from __future__ import annotations

@@ -29,9 +29,9 @@ HIDDEN_UNITS = 24
 #: A high initial rate for Adam (sklearn's default is 1e-3): the relu network then trains in
 #: 40 epochs and, as high rates do, silences some of its units (10 of 24 with these seeds).
 LEARNING_RATE = 0.05
-LOGISTIC_EDGE = math.log(99.0)   # interfaces.md section 4
-SATURATED_SHARE = 0.95           # interfaces.md section 4
-DORMANT_SHARE = 0.01             # interfaces.md section 4 (dormant default)
+LOGISTIC_EDGE = math.log(99.0)   # docs/contract.md section 4
+SATURATED_SHARE = 0.95           # docs/contract.md section 4
+DORMANT_SHARE = 0.01             # docs/contract.md section 4 (dormant default)
 #: sklearn's names for the hidden activations and actdoc's kinds for them.
 KINDS = {"relu": "relu", "logistic": "logistic"}
 
@@ -97,7 +97,7 @@ def named(findings, check: str) -> set[int]:
 
 
 def test_verdicts_equal_numpy_rules_on_sklearn_parameters(trained):
-    # the rules of interfaces.md section 4 applied by numpy to sklearn's pre-activations
+    # the rules of docs/contract.md section 4 applied by numpy to sklearn's pre-activations
     activation, _, _, z, _, path = trained
     with open_dump(path) as dump:
         findings = analyze(dump)

@@ -5,7 +5,7 @@ forward hooks on the Linear modules record z and hooks on the activation modules
 way docs/dump-layout.md tells users to. Pathologies are planted the way they arise in torch
 (a large negative bias drift silences ReLU units; grown weights and biases pin logistic and tanh
 units at an asymptote). Every unit-level verdict of actdoc is then compared with the same rule
-applied directly to torch's own recorded tensors (interfaces.md section 4), so actdoc must name
+applied directly to torch's own recorded tensors (docs/contract.md section 4), so actdoc must name
 exactly the units torch's numbers say, and nothing else.
 """
 
@@ -26,11 +26,11 @@ from actdoc.analysis import analyze  # noqa: E402
 from actdoc.io import open_dump  # noqa: E402
 from actdoc.io.writer import write_dump  # noqa: E402
 
-LOGISTIC_EDGE = math.log(99.0)     # interfaces.md section 4: logistic y < 0.01 or > 0.99
-TANH_EDGE = math.atanh(0.99)       # interfaces.md section 4: tanh |y| > 0.99
-SATURATED_SHARE = 0.95             # interfaces.md section 4
-NEAR_BINARY_MINORITY = 0.05        # interfaces.md section 4
-DORMANT_SHARE = 0.01               # interfaces.md section 4 (dormant default)
+LOGISTIC_EDGE = math.log(99.0)     # docs/contract.md section 4: logistic y < 0.01 or > 0.99
+TANH_EDGE = math.atanh(0.99)       # docs/contract.md section 4: tanh |y| > 0.99
+SATURATED_SHARE = 0.95             # docs/contract.md section 4
+NEAR_BINARY_MINORITY = 0.05        # docs/contract.md section 4
+DORMANT_SHARE = 0.01               # docs/contract.md section 4 (dormant default)
 LINEAR_GAIN_SHARE = 0.9            # docs/checks.md default: f' >= 0.9 max f'
 CONSTANT_TOLERANCE = 1e-6          # docs/checks.md default
 SIGNAL_LIMIT = 10.0                # docs/checks.md default (He et al. 2015, section 2.2)
@@ -122,7 +122,7 @@ def recorded():
 
 
 def expected_unit_states(kind: str, z: np.ndarray, y: np.ndarray) -> dict[str, set[int]]:
-    """The unit checks of interfaces.md section 4, applied in their exclusivity order to the
+    """The unit checks of docs/contract.md section 4, applied in their exclusivity order to the
     recorded tensors (float64, so the rule is the document's and not actdoc's arithmetic)."""
     z, y = z.astype(np.float64), y.astype(np.float64)
     out = {check: set() for check in UNIT_CHECKS}
@@ -182,7 +182,7 @@ def analyse_written(path):
 
 
 def write_with_h5py(path, layers) -> None:
-    """The HDF5 layout of interfaces.md section 1, written with plain h5py (no actdoc code)."""
+    """The HDF5 layout of docs/contract.md section 1, written with plain h5py (no actdoc code)."""
     with h5py.File(path, "w") as handle:
         group = handle.create_group("layers")
         for order, (name, spec) in enumerate(layers.items()):
@@ -205,7 +205,7 @@ def analysed(recorded, tmp_path_factory):
 
 @pytest.mark.parametrize("layer", list(KINDS))
 def test_actdoc_names_exactly_the_units_torch_tensors_say(recorded, analysed, layer):
-    # PyTorch's recorded z and y, judged by the rules of interfaces.md section 4
+    # PyTorch's recorded z and y, judged by the rules of docs/contract.md section 4
     _, layers = recorded
     expected = expected_unit_states(KINDS[layer], layers[layer]["preact"],
                                     layers[layer]["output"])

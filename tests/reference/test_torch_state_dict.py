@@ -1,4 +1,4 @@
-"""Weight archives in state-dict style (interfaces.md section 3) written from a real torch model.
+"""Weight archives in state-dict style (docs/contract.md section 3) written from a real torch model.
 
 A torch module's ``state_dict()`` is saved the two ways users do it outside torch: as NPZ with
 ``np.savez(path, **{k: v.numpy()})`` and as HDF5 with one root dataset per dotted name. actdoc

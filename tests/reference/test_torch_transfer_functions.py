@@ -125,7 +125,7 @@ def test_leaky_relu_matches_torch_for_several_slopes(slope, dtype):
 @pytest.mark.parametrize("threshold", (0.0, 1.5, -2.0))
 def test_threshold_unit_matches_torch_heaviside(threshold, dtype):
     # PyTorch: torch.heaviside(z - t, 0) is 1 where z > t and 0 at and below t, the firing rule
-    # of interfaces.md section 1; torch defines no derivative for it (autograd refuses), and a
+    # of docs/contract.md section 1; torch defines no derivative for it (autograd refuses), and a
     # step passes no gradient anywhere but its jump (common practice): actdoc's gain is 0
     z = np.concatenate([Z_GRID, [threshold]]).astype(dtype)
     shifted = torch.tensor(z) - torch.tensor(threshold, dtype=torch.tensor(z).dtype)
@@ -159,7 +159,7 @@ def test_max_gain_is_the_peak_of_torch_autograd(kind):
 
 def test_zone_edges_against_torch_values_and_gradients():
     # PyTorch: torch.sigmoid(ln 99) = 0.99 and torch.tanh(atanh 0.99) = 0.99 (the saturation
-    # edges of interfaces.md section 4); at the near-linear edge autograd's f' must be exactly
+    # edges of docs/contract.md section 4); at the near-linear edge autograd's f' must be exactly
     # the configured share of the peak gain (0.25 logistic, 1 tanh)
     logistic_edge = logistic_saturation_edge(0.01)
     tanh_edge = tanh_saturation_edge(0.99)

@@ -52,7 +52,7 @@ def findings():
 
 
 def test_json_document_has_the_interface_fields(findings):
-    # interfaces.md section 4: keys and value types of the findings document.
+    # docs/contract.md section 4: keys and value types of the findings document.
     doc = json.loads(render(findings, "json"))
     assert doc["schema"] == "actdoc.findings/1"
     assert doc["source"] == {"file": "m.h5", "sha256": "ab" * 32, "format": "hdf5", "samples": 64}

@@ -91,7 +91,7 @@ print("PEAK", peak, status)
 
 @pytest.fixture(scope="module")
 def big_npz(big_dump, tmp_path_factory) -> Path:
-    """The same dump as an uncompressed NPZ archive (interfaces.md section 2), written member by
+    """The same dump as an uncompressed NPZ archive (docs/contract.md section 2), written member by
     member with numpy's own .npy writer as np.savez does, so the test never holds it whole."""
     path = tmp_path_factory.mktemp("npz") / "big.npz"
     layers = []

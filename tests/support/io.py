@@ -32,7 +32,7 @@ def reference_layers(seed: int = 7) -> dict[str, dict]:
 
 
 def write_plain_hdf5(path, layers, probe=None, *, track_order=True, order=True) -> None:
-    """Section 1 of interfaces.md written with h5py alone (no actdoc code)."""
+    """Section 1 of docs/contract.md written with h5py alone (no actdoc code)."""
     with h5py.File(path, "w") as f:
         group = f.create_group("layers", track_order=track_order)
         for position, (name, spec) in enumerate(layers.items()):
@@ -49,7 +49,7 @@ def write_plain_hdf5(path, layers, probe=None, *, track_order=True, order=True) 
 
 
 def write_plain_npz(path, layers, probe=None, *, meta=True, compress=False) -> None:
-    """Section 2 of interfaces.md written with numpy alone (no actdoc code)."""
+    """Section 2 of docs/contract.md written with numpy alone (no actdoc code)."""
     arrays = {}
     entries = []
     for name, spec in layers.items():

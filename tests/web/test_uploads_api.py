@@ -1,4 +1,4 @@
-"""The HTTP API of interfaces.md section 6 and the workspace behind it, through Flask's client."""
+"""The HTTP API of docs/contract.md section 6 and the workspace behind it, through Flask's client."""
 
 from __future__ import annotations
 
