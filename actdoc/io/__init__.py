@@ -17,6 +17,7 @@ from actdoc.digest import file_sha256
 from actdoc.errors import InvalidDump, UnreadableDump, UnsupportedFormat, describe
 from actdoc.io.base import RawDump, assemble, check_attributes, order_layers
 from actdoc.io.hdf5 import READER as HDF5_READER, find_signature
+from actdoc.io.limits import ReadLimits
 from actdoc.io.memory import MemorySource, dump_from_arrays
 from actdoc.io.npz import DEFAULT_MEMBER_LIMIT, READER as NPZ_READER
 from actdoc.model import ActivationKind, Dump
@@ -26,7 +27,7 @@ READERS = (HDF5_READER, NPZ_READER)
 HEAD_BYTES = 16
 
 __all__ = ["open_dump", "file_sha256", "parse_activations", "READERS", "DEFAULT_MEMBER_LIMIT",
-           "MemorySource", "dump_from_arrays"]
+           "MemorySource", "dump_from_arrays", "ReadLimits"]
 
 
 def pick_reader(path: Path) -> Any:
@@ -98,11 +99,19 @@ def apply_activations(raw: RawDump, specs: Sequence[str]) -> RawDump:
 
 
 def open_dump(path: str | Path, *, activations: Sequence[str] = (),
-              member_limit_bytes: int = DEFAULT_MEMBER_LIMIT) -> Dump:
-    """Open and validate a dump file; the returned Dump reads its arrays lazily (close it)."""
+              limits: ReadLimits | None = None,
+              member_limit_bytes: int | None = None) -> Dump:
+    """Open and validate a dump file; the returned Dump reads its arrays lazily (close it).
+
+    ``limits`` bounds what the file may declare (``ReadLimits()`` when None);
+    ``member_limit_bytes`` is the older spelling of ``limits.member_bytes`` and wins when given.
+    """
     path = Path(path)
+    limits = limits or ReadLimits()
+    if member_limit_bytes is not None:
+        limits = dataclasses.replace(limits, member_bytes=member_limit_bytes)
     reader = pick_reader(path)
-    raw = reader.read(path, {"member_limit_bytes": member_limit_bytes})
+    raw = reader.read(path, {"member_limit_bytes": limits.member_bytes, "limits": limits})
     try:
         if activations:
             raw = apply_activations(raw, activations)
