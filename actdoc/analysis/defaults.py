@@ -143,8 +143,52 @@ TABLE: tuple[SettingRow, ...] = (
 ROWS: dict[str, SettingRow] = {row.name: row for row in TABLE}
 
 
-class _SettingsBase:
-    """Methods shared by the generated ``Settings`` dataclass."""
+def _default(name: str) -> Any:
+    """The default of the table's row ``name`` (the table is the one place for values)."""
+    return ROWS[name].default
+
+
+@dataclass(frozen=True)
+class Settings:
+    """The thresholds of one analysis, one field per row of ``TABLE``, in the table's order.
+
+    Each field's default, full meaning, reason and source are its row in ``TABLE``; the field
+    only names it and gives its type. Adding a threshold means a row in ``TABLE`` and a field
+    here (tests/analysis/test_settings_and_registry.py checks that they match one to one).
+    """
+
+    logistic_saturation_margin: float = _default("logistic_saturation_margin")
+    """Distance from 0 or 1 within which a logistic output counts as saturated."""
+    tanh_saturation_level: float = _default("tanh_saturation_level")
+    """|y| above which a tanh output counts as saturated."""
+    linear_gain_share: float = _default("linear_gain_share")
+    """Share of the peak slope f' that bounds the near-linear zone."""
+    dormant_active_share: float = _default("dormant_active_share")
+    """Active share below which a rectified unit is dormant."""
+    saturated_share: float = _default("saturated_share")
+    """Share of observations saturated on one side that makes a unit saturated."""
+    near_binary_share: float = _default("near_binary_share")
+    """Share of observations saturated on either side needed for a near-binary unit."""
+    near_binary_minority: float = _default("near_binary_minority")
+    """Share the less frequent saturated side must hold for a near-binary unit."""
+    linear_regime_share: float = _default("linear_regime_share")
+    """Share of observations in the near-linear zone that puts a unit in the linear regime."""
+    constant_tolerance: float = _default("constant_tolerance")
+    """Output range, relative to max(1, max |y|), at or below which a unit is constant."""
+    signal_limit: float = _default("signal_limit")
+    """Factor of the first layer's output RMS beyond which a signal vanishes or explodes."""
+    init_scale_factor: float = _default("init_scale_factor")
+    """Factor around the He or Glorot weight scale outside which init_scale flags a layer."""
+    critical_share: float = _default("critical_share")
+    """Share of a layer's units at which a dead, saturated or near-binary finding is critical."""
+    warning_share: float = _default("warning_share")
+    """Share of a layer's units at which a unit-level finding is a warning rather than info."""
+    histogram_rows: int = _default("histogram_rows")
+    """Observation rows per layer, at most about, that feed the histograms."""
+    block_observations: int = _default("block_observations")
+    """Observations read per block from the dump."""
+    read_ahead_blocks: int = _default("read_ahead_blocks")
+    """Blocks a reader thread fetches ahead of the statistics (0: no reader thread)."""
 
     def as_mapping(self) -> dict[str, float]:
         """Every setting by name (as Findings.settings records them)."""
@@ -156,17 +200,6 @@ class _SettingsBase:
         return _validated(dataclasses.replace(self, **checked), "keyword")
 
 
-Settings = dataclasses.make_dataclass(
-    "Settings",
-    [(row.name, int if row.integer else float, dataclasses.field(default=row.default))
-     for row in TABLE],
-    bases=(_SettingsBase,),
-    frozen=True,
-    namespace={"__doc__": "The thresholds of one analysis (see TABLE for each one's meaning).",
-               "__module__": __name__},
-)
-
-
 def _row(name: str, origin: str) -> SettingRow:
     row = ROWS.get(name)
     if row is None:
@@ -175,7 +208,7 @@ def _row(name: str, origin: str) -> SettingRow:
     return row
 
 
-def _validated(settings: Any, origin: str) -> Any:
+def _validated(settings: Settings, origin: str) -> Settings:
     if settings.warning_share > settings.critical_share:
         raise InvalidSetting(
             f"setting 'warning_share' = {settings.warning_share:g} ({origin}) is above "
@@ -192,7 +225,7 @@ def parse_override(text: str) -> tuple[str, str]:
 
 
 def load_settings(config_path: str | Path | None = None,
-                  overrides: Iterable[str] | Mapping[str, Any] = ()) -> Any:
+                  overrides: Iterable[str] | Mapping[str, Any] = ()) -> Settings:
     """Defaults, then the TOML file's values, then ``name=value`` overrides, all checked."""
     values: dict[str, float | int] = {}
     if config_path is not None:

@@ -1,11 +1,16 @@
 """Thresholds: defaults, TOML and overrides, one-sentence errors; the check registry."""
 
+import ast
+import dataclasses
+import inspect
 import math
+import typing
 from pathlib import Path
 
 import pytest
 
 from actdoc.analysis import TABLE, Settings, load_settings
+from actdoc.analysis import defaults
 from actdoc.analysis.checks import REGISTRY, all_checks
 from actdoc.errors import InvalidSetting
 
@@ -30,6 +35,44 @@ def test_toml_then_overrides(tmp_path):
     assert s.histogram_rows == 100 and isinstance(s.histogram_rows, int)
     with pytest.raises(Exception):
         s.signal_limit = 3  # frozen
+
+
+def test_settings_fields_match_the_table_one_to_one():
+    # The table is the one place for values: every row is a typed field of Settings, in the
+    # table's order, whose default is the row's; no field lacks a row. (Project rule, DEVELOPERS.md.)
+    fields = dataclasses.fields(Settings)
+    assert [f.name for f in fields] == [row.name for row in TABLE]
+    hints = typing.get_type_hints(Settings)
+    for field, row in zip(fields, TABLE):
+        assert hints[field.name] is (int if row.integer else float), field.name
+        assert field.default == row.default, field.name
+        assert isinstance(getattr(Settings(), field.name), int if row.integer else (int, float))
+    assert Settings().as_mapping() == {row.name: row.default for row in TABLE}
+
+
+def test_every_settings_field_is_documented():
+    # A plain dataclass, readable in the source: each field is followed by its own docstring.
+    tree = ast.parse(inspect.getsource(defaults))
+    body = next(node for node in tree.body
+                if isinstance(node, ast.ClassDef) and node.name == "Settings").body
+    documented = {
+        node.target.id for node, after in zip(body, body[1:])
+        if isinstance(node, ast.AnnAssign) and isinstance(after, ast.Expr)
+        and isinstance(after.value, ast.Constant) and isinstance(after.value.value, str)
+        and after.value.value.strip()}
+    assert documented == {row.name for row in TABLE}
+    assert not any(isinstance(node, ast.Call) and getattr(node.func, "attr", "") ==
+                   "make_dataclass" for node in ast.walk(tree))
+
+
+def test_replace_checks_values_and_keeps_the_type():
+    s = Settings().replace(signal_limit=20, histogram_rows=100.0)
+    assert type(s) is Settings and s.signal_limit == 20.0 and s.histogram_rows == 100
+    assert isinstance(s.histogram_rows, int)
+    with pytest.raises(InvalidSetting, match="expected a whole number"):
+        Settings().replace(histogram_rows=2.5)
+    with pytest.raises(InvalidSetting, match="unknown setting 'nope'"):
+        Settings().replace(nope=1)
 
 
 @pytest.mark.parametrize("overrides, fragment", [
