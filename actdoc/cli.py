@@ -1,7 +1,8 @@
 """The ``actdoc`` command: analyse a dump, gate a pipeline, serve the dashboard, write demos.
 
 The command only wraps the core and the app: it parses arguments, calls them, and maps every
-input error to one line on stderr and exit status 2.
+input error to one line on stderr and exit status 2. Names from a dump reach the terminal only
+through ``visible`` (actdoc/escaping.py), so escape sequences in them are shown, never obeyed.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from typing import Callable, Sequence
 
 from actdoc import __version__
 from actdoc.errors import ActdocError
+from actdoc.escaping import visible, visible_lines
 
 EXIT_OK, EXIT_FLAGGED, EXIT_INVALID = 0, 1, 2
 
@@ -26,13 +28,15 @@ class ProgressBar:
     def __init__(self, label: str, stream=None, enabled: bool | None = None):
         self.stream = stream or sys.stderr
         self.enabled = self.stream.isatty() if enabled is None else enabled
-        self.label = label
+        self.label = visible(label)
         self._last = -1.0
         self._started = time.monotonic()
 
     def __call__(self, fraction: float) -> None:
         if not self.enabled:
             return
+        from actdoc.formatting import share  # numpy: imported once the command runs
+
         fraction = min(1.0, max(0.0, float(fraction)))
         if fraction - self._last < 0.005 and fraction < 1.0:
             return
@@ -40,7 +44,7 @@ class ProgressBar:
         filled = int(round(30 * fraction))
         elapsed = time.monotonic() - self._started
         self.stream.write(f"\r{self.label} [{'#' * filled}{'.' * (30 - filled)}] "
-                          f"{100 * fraction:5.1f}%  {elapsed:5.1f}s")
+                          f"{share(fraction, 1, 5)}  {elapsed:5.1f}s")
         if fraction >= 1.0:
             self.stream.write("\n")
         self.stream.flush()
@@ -166,7 +170,7 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     findings = _analyse(args, "analysing", digest=args.format in DIGEST_FORMATS)
     report = render(findings, args.format)
     if args.output is None:
-        sys.stdout.write(report)
+        sys.stdout.write(visible_lines(report) if sys.stdout.isatty() else report)
     else:
         try:
             write_atomically(args.output, report)
@@ -181,14 +185,14 @@ def cmd_check(args: argparse.Namespace) -> int:
     findings = _analyse(args, "checking", digest=False)
     level = Severity(args.fail_on)
     hits = [f for f in findings.findings if f.severity.rank >= level.rank]
-    name = findings.source.file
+    name = visible(findings.source.file)
     if hits:
-        layers = sorted({f.layer for f in hits})
+        layers = sorted({visible(f.layer) for f in hits})
         print(f"{name}: {len(hits)} finding(s) at or above {level.value} "
               f"in {', '.join(layers)}")
         for finding in hits:
-            print(f"  {finding.severity.value}: {finding.layer} / {finding.check}: "
-                  f"{finding.summary}")
+            print(f"  {finding.severity.value}: {visible(finding.layer)} / "
+                  f"{visible(finding.check)}: {visible(finding.summary)}")
         return EXIT_FLAGGED
     print(f"{name}: nothing at or above {level.value} "
           f"({len(findings.findings)} finding(s) below it)")
@@ -199,6 +203,7 @@ def cmd_compare(args: argparse.Namespace) -> int:
     import json
 
     from actdoc.compare import compare_series, comparison_document
+    from actdoc.formatting import share
 
     if len(args.dumps) < 2:
         raise ActdocError("actdoc compare needs at least two dumps")
@@ -210,19 +215,19 @@ def cmd_compare(args: argparse.Namespace) -> int:
         sys.stdout.write(json.dumps(comparison_document(comparison), indent=2) + "\n")
         return EXIT_OK
     print("share of units per check, in the order given: "
-          + ", ".join(f"[{i + 1}] {name}" for i, name in enumerate(comparison.files)))
+          + ", ".join(f"[{i + 1}] {visible(name)}" for i, name in enumerate(comparison.files)))
     for track in comparison.layers:
         shown = [c for c in track.checks if any(s > 0 for s in track.shares[c])]
         for check in shown:
-            shares = "  ".join(f"{100 * s:5.1f}%" for s in track.shares[check])
-            print(f"{track.name:<16} {check:<16} {shares}")
+            shares = "  ".join(share(s, 1, 5) for s in track.shares[check])
+            print(f"{visible(track.name):<16} {visible(check):<16} {shares}")
     for step in comparison.steps:
         before, after = comparison.files[step.before], comparison.files[step.after]
-        print(f"\n{before} -> {after}:")
+        print(f"\n{visible(before)} -> {visible(after)}:")
         if not step.changes:
             print("  no unit changed state")
         for change in step.changes:
-            print(f"  {change.sentence()}")
+            print(f"  {visible(change.sentence())}")
     return EXIT_OK
 
 
@@ -276,7 +281,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return COMMANDS[args.command](args)
     except ActdocError as err:
-        print(f"actdoc: {err}", file=sys.stderr)
+        print(f"actdoc: {visible(err)}", file=sys.stderr)
         return EXIT_INVALID
     except KeyboardInterrupt:
         print("actdoc: interrupted", file=sys.stderr)

@@ -17,6 +17,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from actdoc.errors import IncomparableDumps
+from actdoc.formatting import clean_number
 from actdoc.model import Findings, LayerReport, LayerStatus
 
 #: How a unit that no check names is spelled in a unit state column and in the changes.
@@ -177,10 +178,6 @@ def compare_series(series: Sequence[Findings]) -> Comparison:
     return Comparison(tuple(f.source.file for f in series), layers, steps)
 
 
-def _json_number(value: float) -> float | None:
-    return None if value != value else value  # NaN has no JSON spelling
-
-
 def comparison_document(comparison: Comparison) -> dict[str, Any]:
     """The comparison as JSON-ready data (the dashboard's JSON twin carries it)."""
     return {
@@ -188,7 +185,7 @@ def comparison_document(comparison: Comparison) -> dict[str, Any]:
         "layers": [{
             "name": track.name, "activation": track.kind, "units": track.units,
             "statuses": [status.value for status in track.statuses],
-            "checks": {check: {"shares": [_json_number(s) for s in track.shares[check]],
+            "checks": {check: {"shares": [clean_number(s) for s in track.shares[check]],
                                "counts": list(track.counts[check])}
                        for check in track.checks},
         } for track in comparison.layers],

@@ -2,10 +2,15 @@
 
 Every error a user can cause carries one sentence that names the file, the layer and the array
 where that makes sense, and what is wrong. The command line prints that sentence alone and exits
-with status 2; the web layer maps each class to an HTTP status in one place.
+with status 2; the web layer maps each class to an HTTP status in one place. Names in a message
+come from the dump and are untrusted: control characters in them (ANSI/OSC escape sequences, CR,
+LF) are shown as escapes (actdoc/escaping.py), so a message is always one line and never drives
+the terminal it is printed on.
 """
 
 from __future__ import annotations
+
+from actdoc.escaping import visible
 
 
 class ActdocError(Exception):
@@ -14,6 +19,7 @@ class ActdocError(Exception):
     exit_status = 2
 
     def __init__(self, message: str):
+        message = visible(message)
         super().__init__(message)
         self.message = message
 
@@ -55,12 +61,13 @@ class InvalidSetting(ActdocError):
 
 
 def describe(path: object, layer: str | None = None, array: str | None = None) -> str:
-    """The "where" part of an error sentence: file, then layer, then array."""
+    """The "where" part of an error sentence: file, then layer, then array, each name with its
+    control characters shown as escapes."""
     from pathlib import Path
 
-    where = f"{Path(str(path)).name}"
+    where = visible(Path(str(path)).name)
     if layer is not None:
-        where += f", layer '{layer}'"
+        where += f", layer '{visible(layer)}'"
     if array is not None:
-        where += f", array '{array}'"
+        where += f", array '{visible(array)}'"
     return where

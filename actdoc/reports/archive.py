@@ -13,6 +13,7 @@ from typing import Any
 
 import numpy as np
 
+from actdoc.formatting import clean_number, from_json_number
 from actdoc.model import (
     ActivationKind,
     ActivationSource,
@@ -27,7 +28,6 @@ from actdoc.model import (
     SourceInfo,
     WeightSummary,
 )
-from actdoc.reports.document import clean_number
 
 ARCHIVE_VERSION = 1
 META_FILE = "findings-full.json"
@@ -105,10 +105,6 @@ def save_findings(findings: Findings, folder: str | Path) -> None:
     (folder / META_FILE).write_text(json.dumps(meta), encoding="utf-8")
 
 
-def _num(value: Any) -> float:
-    return float("nan") if value is None else float(value)
-
-
 def load_findings(folder: str | Path) -> Findings:
     """Read back what ``save_findings`` wrote."""
     folder = Path(folder)
@@ -139,9 +135,10 @@ def load_findings(folder: str | Path) -> Findings:
         ))
     found = tuple(
         Finding(check=f["check"], severity=Severity(f["severity"]), layer=f["layer"],
-                units=tuple(f["units"]), measure=_num(f["measure"]),
-                threshold=_num(f["threshold"]), summary=f["summary"], cause=f["cause"],
-                remedy=f["remedy"], unit_measures=tuple(_num(m) for m in f["unit_measures"]))
+                units=tuple(f["units"]), measure=from_json_number(f["measure"]),
+                threshold=from_json_number(f["threshold"]), summary=f["summary"],
+                cause=f["cause"], remedy=f["remedy"],
+                unit_measures=tuple(from_json_number(m) for m in f["unit_measures"]))
         for f in meta["findings"])
     return Findings(source=SourceInfo(**meta["source"]), layers=tuple(reports), findings=found,
                     settings=meta["settings"], caveat=meta["caveat"])

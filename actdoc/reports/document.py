@@ -1,24 +1,16 @@
-"""The findings document (docs/contract.md section 4) and the small helpers every format shares."""
+"""The findings document (docs/contract.md section 4) and the small helpers every format shares.
+
+Numbers go through ``clean_number`` (actdoc/formatting.py): NaN and infinities become null."""
 
 from __future__ import annotations
 
-import math
 from collections import Counter
 from typing import Any
 
+from actdoc.formatting import clean_number
 from actdoc.model import Finding, Findings, LayerReport, LayerStatus, Severity
 
 SCHEMA = "actdoc.findings/1"
-
-
-def clean_number(value: Any) -> float | int | None:
-    """A JSON-safe number: NaN and infinities become None (JSON has no spelling for them)."""
-    if value is None:
-        return None
-    if isinstance(value, (bool, int)):
-        return int(value)
-    number = float(value)
-    return number if math.isfinite(number) else None
 
 
 def layer_entry(report: LayerReport) -> dict[str, Any]:

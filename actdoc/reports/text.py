@@ -1,9 +1,15 @@
-"""A terminal report: one line per layer, then the findings, most serious first."""
+"""A terminal report: one line per layer, then the findings, most serious first.
+
+Every name and sentence passes through ``visible`` (actdoc/escaping.py): control characters from
+a dump (ANSI/OSC escape sequences, CR, LF, BEL) are shown as escapes, never sent to the terminal.
+"""
 
 from __future__ import annotations
 
 import textwrap
 
+from actdoc.escaping import visible
+from actdoc.formatting import share
 from actdoc.model import Findings, LayerReport
 from actdoc.reports.document import ordered_findings, unit_list, verdict
 
@@ -13,11 +19,11 @@ MARKS = {"healthy": "ok  ", "warning": "WARN", "critical": "CRIT"}
 
 def _layer_line(report: LayerReport, name_width: int) -> str:
     info = report.info
-    flagged = {check: share for check, share in report.fractions.items() if share}
+    flagged = {check: value for check, value in report.fractions.items() if value}
     top = sorted(flagged.items(), key=lambda item: -item[1])[:3]
-    shares = ", ".join(f"{check} {100 * share:.0f}%" for check, share in top) or "-"
+    shares = ", ".join(f"{visible(check)} {share(value, 0)}" for check, value in top) or "-"
     kind = info.kind.value + ("?" if info.kind_source.value == "inferred" else "")
-    return (f"  [{MARKS[report.status.value]}] {info.name:<{name_width}}  {kind:<18} "
+    return (f"  [{MARKS[report.status.value]}] {visible(info.name):<{name_width}}  {kind:<18} "
             f"{info.units:>6} units  {shares}")
 
 
@@ -25,9 +31,10 @@ def render_text(findings: Findings) -> str:
     """The readable report ``actdoc analyze`` prints by default."""
     source = findings.source
     counts = verdict(findings)
-    name_width = max([len(r.name) for r in findings.layers] + [5])
+    name_width = max([len(visible(r.name)) for r in findings.layers] + [5])
     lines = [
-        f"actdoc: {source.file} ({source.format}, {source.samples} probe samples)",
+        f"actdoc: {visible(source.file)} ({visible(source.format)}, {source.samples} probe "
+        f"samples)",
         f"layers: {counts['layers']['critical']} critical, {counts['layers']['warning']} warning, "
         f"{counts['layers']['healthy']} healthy",
         "",
@@ -39,12 +46,13 @@ def render_text(findings: Findings) -> str:
         lines.append("No check flagged anything on this probe batch.")
     wrap = textwrap.TextWrapper(width=WIDTH, initial_indent="      ", subsequent_indent="      ")
     for finding in ordered_findings(findings):
-        lines.append(f"  {finding.severity.value.upper():<8} {finding.layer} / {finding.check}")
-        lines.extend(wrap.wrap(finding.summary))
+        lines.append(f"  {finding.severity.value.upper():<8} {visible(finding.layer)} / "
+                     f"{visible(finding.check)}")
+        lines.extend(wrap.wrap(visible(finding.summary)))
         if finding.units:
             lines.extend(wrap.wrap(f"units: {unit_list(finding.units)}"))
-        lines.extend(wrap.wrap(f"cause: {finding.cause}"))
-        lines.extend(wrap.wrap(f"try: {finding.remedy}"))
+        lines.extend(wrap.wrap(f"cause: {visible(finding.cause)}"))
+        lines.extend(wrap.wrap(f"try: {visible(finding.remedy)}"))
         lines.append("")
-    lines.extend(textwrap.wrap("Note: " + findings.caveat, WIDTH))
+    lines.extend(textwrap.wrap("Note: " + visible(findings.caveat), WIDTH))
     return "\n".join(lines) + "\n"

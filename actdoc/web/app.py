@@ -12,7 +12,8 @@ from werkzeug.exceptions import Forbidden, Unauthorized
 import actdoc
 from actdoc.web import api, assets, errors, pages, views
 from actdoc.web.worker import AnalysisWorker
-from actdoc.web.embed import embed_json, first_sentence, number, percent
+from actdoc.formatting import number, percent
+from actdoc.web.embed import embed_json, first_sentence
 from actdoc.uploads import UploadSpool
 from actdoc.workspace import DEFAULT_MAX_UPLOAD_BYTES, Workspace, default_workspace_dir
 

@@ -11,7 +11,7 @@ from actdoc.model import CAVEAT, LayerReport
 from actdoc.web import drift as drift_view
 from actdoc.web import views
 from actdoc.web.api import dump_object, receive_upload, state
-from actdoc.web.embed import plain
+from actdoc.formatting import plain
 
 blueprint = Blueprint("pages", __name__)
 

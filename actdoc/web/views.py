@@ -22,7 +22,7 @@ from actdoc.model import (
 )
 from actdoc.reports.document import finding_entry, layer_entry, ordered_findings, verdict
 from actdoc.web import figures
-from actdoc.web.embed import plain
+from actdoc.formatting import plain
 
 #: Findings listed on the model overview, most serious first.
 TOP_FINDINGS = 8
