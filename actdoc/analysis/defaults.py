@@ -150,7 +150,7 @@ def _default(name: str) -> Any:
 
 @dataclass(frozen=True)
 class Settings:
-    """The thresholds of one analysis, one field per row of ``TABLE``, in the table's order.
+    """The thresholds of one analysis, one field per row of ``TABLE``.
 
     Each field's default, full meaning, reason and source are its row in ``TABLE``; the field
     only names it and gives its type. Adding a threshold means a row in ``TABLE`` and a field

@@ -38,15 +38,17 @@ def test_toml_then_overrides(tmp_path):
 
 
 def test_settings_fields_match_the_table_one_to_one():
-    # The table is the one place for values: every row is a typed field of Settings, in the
-    # table's order, whose default is the row's; no field lacks a row. (Project rule, DEVELOPERS.md.)
-    fields = dataclasses.fields(Settings)
-    assert [f.name for f in fields] == [row.name for row in TABLE]
+    # The table is the one place for values: every row is a typed field of Settings whose
+    # default is the row's, and no field lacks a row. (Project rule, DEVELOPERS.md.)
+    fields = {f.name: f for f in dataclasses.fields(Settings)}
+    rows = {row.name: row for row in TABLE}
+    assert not set(rows) - set(fields), "add a field to Settings for each of these rows"
+    assert not set(fields) - set(rows), "add a row to TABLE for each of these fields"
     hints = typing.get_type_hints(Settings)
-    for field, row in zip(fields, TABLE):
-        assert hints[field.name] is (int if row.integer else float), field.name
-        assert field.default == row.default, field.name
-        assert isinstance(getattr(Settings(), field.name), int if row.integer else (int, float))
+    for name, row in rows.items():
+        assert hints[name] is (int if row.integer else float), name
+        assert fields[name].default == row.default, name
+        assert isinstance(getattr(Settings(), name), int if row.integer else (int, float))
     assert Settings().as_mapping() == {row.name: row.default for row in TABLE}
 
 
