@@ -26,9 +26,10 @@ from actdoc.model import Finding, Findings, Severity, SourceInfo
 from actdoc.reports import render_csv
 
 # ECMA-48 section 5.2 (C0), 5.3 (C1) and DEL, plus the Unicode line/paragraph separators and
-# bidirectional controls (Unicode Standard Annex #9, table 4; CVE-2021-42574).
+# bidirectional controls (Unicode Standard Annex #9, from memory; CVE-2021-42574).
 FORBIDDEN = ({chr(c) for c in range(0x20)} | {"\x7f"} | {chr(c) for c in range(0x80, 0xA0)}
-             | set("\u2028\u2029\u200e\u200f\u202a\u202b\u202c\u202d\u202e\u2066\u2067\u2068\u2069"))
+             | set("\u2028\u2029\u200e\u200f\u202a\u202b\u202c\u202d\u202e")
+             | set("\u2066\u2067\u2068\u2069"))
 
 COMMONMARK = MarkdownIt("commonmark").enable("table")
 
