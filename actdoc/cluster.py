@@ -142,6 +142,8 @@ def analyze_target(
     activations: Sequence[str] = (),
     workers: int | None = None,
     digest: bool = True,
+    probe: str | Path | None = None,
+    synthetic_probe: int | None = None,
 ) -> Findings:
     """What ``actdoc analyze DUMP [--scheduler ADDRESS]`` runs, in one call.
 
@@ -150,13 +152,24 @@ def analyze_target(
     ``activations`` are the command line's ``--activation`` values; ``workers`` the local
     engine's measuring threads; ``digest=False`` skips hashing the dump (``source.sha256``
     is then "").
+    ``probe`` (a probe file) and ``synthetic_probe`` (a sample count) run the forward pass of a
+    weights-only checkpoint (``actdoc.forward``), as does a ``/probe/input`` in such a file.
     """
+    from actdoc.forward import with_forward_pass
 
     options = {"activations": list(activations)}
     if scheduler is None and not is_sharded(dump):
         with open_dump(dump, **options) as opened:
-            return analyze(opened, settings, progress=progress, workers=workers,
-                           digest=digest)
+            prepared = with_forward_pass(opened, probe, synthetic_probe)
+            try:
+                return analyze(prepared, settings, progress=progress, workers=workers,
+                               digest=digest)
+            finally:
+                if prepared is not opened:
+                    prepared.close()
+    if probe is not None or synthetic_probe is not None:
+        raise ActdocError("a probe (--probe, --synthetic-probe) applies to one checkpoint file, "
+                          "not to shards or a cluster")
     return analyze_shards(dump, settings, scheduler=scheduler, progress=progress,
                           open_options=options, digest=digest)
 

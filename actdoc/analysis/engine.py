@@ -66,11 +66,16 @@ def _aggregate(values: np.ndarray, how: str) -> float:
     return float({"mean": np.mean, "max": np.max, "sum": np.sum}[how](values))
 
 
-def _unit_findings(layer: Layer, stats: LayerStats, checks: list[Check], settings: Settings,
-                   parameter_nonfinite: np.ndarray | None):
-    """Findings of the unit checks, the share of units per check, and each unit's state."""
+def _unit_findings(layer: Layer, stats: LayerStats | None, checks: list[Check],
+                   settings: Settings, parameter_nonfinite: np.ndarray | None):
+    """Findings of the unit checks, the share of units per check, and each unit's state.
+    Without statistics (a weights-only layer) only the static checks run."""
     info = layer.info
-    unit = UnitInput(info, stats, settings, parameter_nonfinite)
+    if stats is None:
+        checks = [check for check in checks if check.static]
+        unit = UnitInput(info, None, settings, parameter_nonfinite, layer.weight(), layer.bias())
+    else:
+        unit = UnitInput(info, stats, settings, parameter_nonfinite)
     claimed = np.zeros(info.units, bool)
     states = np.full(info.units, "", dtype=f"<U{STATE_WIDTH}")
     sides = np.full(info.units, "", dtype="<U4")
@@ -268,6 +273,11 @@ def findings_from_stats(dump: Dump, measured: list[LayerStats | None], settings:
         else:
             found, fractions, states, sides = _parameter_only(layer, weights, bad_parameters,
                                                               unit_checks, settings)
+            if weights is not None:
+                static, static_fractions, _, _ = _unit_findings(
+                    layer, None, unit_checks, settings, bad_parameters)
+                found += static
+                fractions.update(static_fractions)
         found += _layer_findings(LayerInput(info, stats, settings, weights, scale,
                                             reference[0], reference[1]), layer_checks)
         all_findings += found

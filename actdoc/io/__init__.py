@@ -20,10 +20,11 @@ from actdoc.io.hdf5 import READER as HDF5_READER, find_signature
 from actdoc.io.limits import ReadLimits
 from actdoc.io.memory import MemorySource, dump_from_arrays
 from actdoc.io.npz import DEFAULT_MEMBER_LIMIT, READER as NPZ_READER
+from actdoc.io.safetensors_file import READER as SAFETENSORS_READER
 from actdoc.model import ActivationKind, Dump
 
 #: Every reader, tried in order on the file's first bytes.
-READERS = (HDF5_READER, NPZ_READER)
+READERS = (HDF5_READER, NPZ_READER, SAFETENSORS_READER)
 HEAD_BYTES = 16
 
 __all__ = ["open_dump", "file_sha256", "parse_activations", "READERS", "DEFAULT_MEMBER_LIMIT",

@@ -93,18 +93,26 @@ def resolve_kind(raw: RawDump, layer: RawLayer) -> tuple[ActivationKind, Activat
     declared = layer.attrs.get("activation")
     if isinstance(declared, bytes):
         declared = declared.decode("utf-8", "replace")
-    if declared is not None and str(declared).strip():
-        where = describe(raw.path, layer.name)
-        return ActivationKind.parse(str(declared), where), ActivationSource.DECLARED, {}
-    from actdoc.io.infer import infer_kind
+    from actdoc.io.infer import in_place_note, infer_kind
 
+    preact, output = layer.arrays.get("preact"), layer.arrays.get("output")
     try:
-        guess = infer_kind(layer.arrays.get("preact"), layer.arrays.get("output"))
+        if declared is not None and str(declared).strip():
+            where = describe(raw.path, layer.name)
+            kind = ActivationKind.parse(str(declared), where)
+            found: dict[str, Any] = {}
+            if kind is not ActivationKind.LINEAR and preact is not None and output is not None:
+                found["note"] = in_place_note(preact, output)
+            return kind, ActivationSource.DECLARED, found
+        guess = infer_kind(preact, output)
+        note = guess.note
+        if preact is not None and output is not None:
+            note = "; ".join(part for part in (note, in_place_note(preact, output)) if part)
     except (OSError, ValueError, EOFError) as exc:
         raise UnreadableDump(
             f"{describe(raw.path, layer.name)}: reading the activations to infer the layer's "
             f"kind failed ({exc})") from None
-    found: dict[str, Any] = {"negative_slope": guess.negative_slope, "note": guess.note}
+    found = {"negative_slope": guess.negative_slope, "note": note}
     if guess.threshold is not None:
         found["threshold"] = guess.threshold
     return guess.kind, ActivationSource.INFERRED, found

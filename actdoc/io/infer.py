@@ -120,6 +120,28 @@ def infer_kind(preact_source: ArraySource | None, output_source: ArraySource | N
     return from_pairs(z, y, np.dtype(preact_source.dtype), y_dtype)
 
 
+#: The note a layer gets when its stored pre-activations look like a copy of its outputs.
+IN_PLACE_NOTE = (
+    "preact equals output exactly and is never negative on the first {n} observations: it was "
+    "probably recorded after an in-place activation overwrote it (copy z before the activation "
+    "runs, as actdoc.capture does; docs/dump-layout.md), so the findings describe y, not z")
+
+
+def in_place_note(preact_source: ArraySource, output_source: ArraySource) -> str:
+    """A warning when the first block of z equals y exactly and is never negative, the mark of
+    a framework hook that kept a reference to z while an in-place rectifier overwrote it; ""
+    otherwise. Reads one bounded block of each array, like inference."""
+    if tuple(preact_source.shape) != tuple(output_source.shape):
+        return ""
+    z = leading_values(preact_source)
+    y = leading_values(output_source)
+    if z.shape != y.shape or z.size == 0 or not np.isfinite(z).all():
+        return ""
+    if np.array_equal(z, y) and z.min() >= 0 and z.max() > 0:
+        return IN_PLACE_NOTE.format(n=z.shape[0])
+    return ""
+
+
 def from_output(y: np.ndarray, y_dtype: np.dtype, prefix: str = "") -> KindGuess:
     """Best guess from output values alone (rule documented in docs/dump-layout.md)."""
     y = y[np.isfinite(y)]

@@ -17,6 +17,7 @@ from __future__ import annotations
 import json
 import os
 import tempfile
+import warnings
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -30,6 +31,10 @@ from actdoc.model import LAYER_ARRAYS, ActivationKind
 LAYOUT_VERSION = 1
 LAYER_ATTRIBUTES = ("activation", "threshold", "negative_slope")
 DEFAULT_CHUNK_ROWS = 1024
+
+
+class InPlaceWarning(UserWarning):
+    """A layer's stored pre-activations look like a copy of its outputs (docs/dump-layout.md)."""
 
 
 def temporary_beside(path: Path, overwrite: bool) -> Path:
@@ -141,17 +146,41 @@ class DumpWriter:
             group.attrs["threshold"] = float(threshold)
         if negative_slope is not None:
             group.attrs["negative_slope"] = float(negative_slope)
+        self._specs[name] = {"kind": kind, "dtype": dtype, "units": units,
+                             "spatial": tuple(spatial), "clip": preact is not None
+                             or output is not None, "same": None}
         for array_name, value in (("weight", weight), ("bias", bias)):
             if value is not None:
                 value = np.asarray(value)
                 if value.dtype.kind != "f":
                     value = value.astype(np.float32 if dtype is None else dtype)
                 group.create_dataset(array_name, data=value)
-        self._specs[name] = {"kind": kind, "dtype": dtype, "units": units,
-                             "spatial": tuple(spatial), "clip": preact is not None
-                             or output is not None}
+        self._check_parameters(name)
         if preact is not None or output is not None:
             self.append(name, preact=preact, output=output)
+
+    def _check_parameters(self, name: str) -> None:
+        """Weight rows and bias length against the layer's units, once the units are known
+        (given, or from the first block): a parameter of another layer is refused here."""
+        group, units = self._layers[name], self._specs[name]["units"]
+        weight, bias = group.get("weight"), group.get("bias")
+        problem = None
+        if weight is not None and weight.ndim < 2:
+            problem = (f"weight: expected [units, fan_in] or [units, in_channels, *kernel], got "
+                       f"shape {list(weight.shape)}")
+        elif bias is not None and bias.ndim != 1:
+            problem = f"bias: expected shape [units], got {list(bias.shape)}"
+        elif weight is not None and bias is not None and weight.shape[0] != bias.shape[0]:
+            problem = (f"weight has {weight.shape[0]} rows but bias has {bias.shape[0]} entries; "
+                       f"both hold one entry per unit")
+        elif units is not None and weight is not None and weight.shape[0] != units:
+            problem = (f"weight has {weight.shape[0]} rows but the layer has {units} units; "
+                       f"expected this layer's own incoming weights, one row per unit")
+        elif units is not None and bias is not None and bias.shape[0] != units:
+            problem = f"bias has {bias.shape[0]} entries but the layer has {units} units"
+        if problem is not None:
+            self.abort()
+            raise ValueError(f"layer '{name}', {problem}")
 
     def append(self, name: str, *, preact: Any = None, output: Any = None) -> None:
         """Append a block of samples (``[block, units, *spatial]``) to a layer's arrays."""
@@ -167,6 +196,7 @@ class DumpWriter:
                                  f"*spatial], got shape {list(block.shape)}")
             if spec["units"] is None:
                 spec["units"], spec["spatial"] = block.shape[1], tuple(block.shape[2:])
+                self._check_parameters(name)
             expected = (spec["units"],) + spec["spatial"]
             if tuple(block.shape[1:]) != expected:
                 raise ValueError(f"layer '{name}', {array_name}: block shape "
@@ -176,6 +206,18 @@ class DumpWriter:
             start = dataset.shape[0]
             dataset.resize(start + block.shape[0], axis=0)
             dataset[start:] = block.astype(dataset.dtype, copy=False)
+        if preact is not None and output is not None:
+            self._watch_in_place(name, np.asarray(preact), np.asarray(output))
+
+    def _watch_in_place(self, name: str, z: np.ndarray, y: np.ndarray) -> None:
+        """Track whether every block so far had z == y exactly with z never negative (on a
+        layer not declared linear): the mark of z recorded after an in-place activation."""
+        spec = self._specs[name]
+        if spec["kind"] is ActivationKind.LINEAR or spec["same"] is False:
+            return
+        with np.errstate(invalid="ignore"):
+            same = z.shape == y.shape and bool(np.array_equal(z, y)) and bool((z >= 0).all())
+        spec["same"] = same and (spec["same"] is not None or bool((z > 0).any()))
 
     def _dataset(self, name: str, array_name: str, block: np.ndarray) -> h5py.Dataset:
         group = self._layers[name]
@@ -194,6 +236,26 @@ class DumpWriter:
         if "input" in probe:
             del probe["input"]
         probe.create_dataset("input", data=np.asarray(inputs))
+
+    def append_probe_input(self, block: Any) -> None:
+        """Append a block of probe inputs ``[block, ...]`` to /probe/input (streamed)."""
+        block = np.asarray(block)
+        if block.ndim < 1:
+            raise ValueError("probe input: expected [samples, ...], got a scalar")
+        probe = self._file.require_group("probe")
+        if "input" not in probe:
+            per_row = max(1, int(np.prod(block.shape[1:])))
+            rows = max(1, min(self.chunk_rows, (1 << 16) // per_row))  # about 64 Ki values
+            probe.create_dataset("input", shape=(0,) + block.shape[1:], dtype=block.dtype,
+                                 maxshape=(None,) + block.shape[1:],
+                                 chunks=(rows,) + block.shape[1:])
+        dataset = probe["input"]
+        if tuple(dataset.shape[1:]) != tuple(block.shape[1:]):
+            raise ValueError(f"probe input: block shape {list(block.shape)} does not continue "
+                             f"{[None, *dataset.shape[1:]]}")
+        start = dataset.shape[0]
+        dataset.resize(start + block.shape[0], axis=0)
+        dataset[start:] = block.astype(dataset.dtype, copy=False)
 
     def close(self) -> None:
         """Check every layer holds data, finish the file and move it into place."""
@@ -215,6 +277,12 @@ class DumpWriter:
         self._file.close()
         self._file = None
         publish(self._temporary, self.path, self.overwrite)
+        suspects = [name for name, spec in self._specs.items() if spec["same"]]
+        if suspects:
+            warnings.warn(f"{self.path.name}: in layer(s) {', '.join(suspects)} preact equals "
+                          f"output exactly and is never negative: z was probably recorded after "
+                          f"an in-place activation overwrote it; copy it first (.clone() in "
+                          f"PyTorch) or use actdoc.capture", InPlaceWarning, stacklevel=2)
 
     def abort(self) -> None:
         """Discard everything written; the target path is left untouched."""

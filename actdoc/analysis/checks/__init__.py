@@ -28,10 +28,14 @@ class UnitInput:
     """What a unit check may look at."""
 
     info: LayerInfo
-    stats: LayerStats
+    #: None for a layer without activations (only ``static`` checks run there).
+    stats: LayerStats | None
     settings: Settings
     #: Non-finite entries per unit in the weight row and bias (None: no parameters stored).
     parameter_nonfinite: np.ndarray | None = None
+    #: The layer's incoming weights [units, ...] and bias, given to ``static`` checks.
+    weight: np.ndarray | None = None
+    bias: np.ndarray | None = None
 
     def share(self, counts: np.ndarray) -> np.ndarray:
         """counts / finite observations per unit (NaN for a unit with none)."""
@@ -89,6 +93,8 @@ class Check:
     critical_by_share: bool = False
     always_critical: bool = False
     advise: Callable[[ActivationKind], tuple[str, str]] | None = None
+    #: Runs on layers without activations, from the weights alone (checks/static.py).
+    static: bool = False
 
     def applies_to(self, kind: ActivationKind) -> bool:
         return self.kinds is None or kind in self.kinds
@@ -114,12 +120,14 @@ def _register(check: Check) -> None:
 def unit_check(name: str, *, cause: str, remedy: str, rank: int | None = None,
                kinds: Iterable[ActivationKind] | None = None, critical_by_share: bool = False,
                always_critical: bool = False,
-               advise: Callable[[ActivationKind], tuple[str, str] | None] | None = None):
-    """Register ``fn(UnitInput) -> UnitVerdict | None`` (None: not measurable on this layer)."""
+               advise: Callable[[ActivationKind], tuple[str, str] | None] | None = None,
+               static: bool = False):
+    """Register ``fn(UnitInput) -> UnitVerdict | None`` (None: not measurable on this layer).
+    A ``static`` check also runs on layers without activations (``UnitInput.stats`` None)."""
     def decorate(fn):
         _register(Check(name, "unit", fn, cause, remedy, rank,
                         None if kinds is None else frozenset(kinds), critical_by_share,
-                        always_critical, advise))
+                        always_critical, advise, static))
         return fn
     return decorate
 
