@@ -15,7 +15,7 @@ import time
 from pathlib import Path
 from typing import Callable, Sequence
 
-from actdoc import __version__
+from actdoc import __version__, cli_repair
 from actdoc.errors import ActdocError
 from actdoc.escaping import visible, visible_lines
 
@@ -68,6 +68,7 @@ def _input_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--workers", type=int, metavar="N",
                         help="measuring threads of the local engine (default: the cores, "
                              "at most 3)")
+    cli_repair.add_probe_options(parser)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -107,6 +108,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     demo = sub.add_parser("demo", help="train the demo networks and write their dumps")
     demo.add_argument("--output", type=Path, default=Path("actdoc-demo"), metavar="DIR")
+    cli_repair.register(sub)
     return parser
 
 
@@ -137,9 +139,11 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
     workers = getattr(args, "workers", None)
     if workers is not None and workers < 1:
         raise ActdocError(f"--workers must be at least 1, not {workers}")
+    cli_repair.synthetic_warning(args)
     findings = analyze_target(target, settings, scheduler=scheduler, progress=ProgressBar(label),
                               activations=getattr(args, "activation", ()), workers=workers,
-                              digest=digest and hashing is None)
+                              digest=digest and hashing is None, probe=getattr(args, "probe", None),
+                              synthetic_probe=getattr(args, "synthetic_probe", None))
     if hashing is not None:
         try:
             sha256 = hashing.result()
@@ -260,7 +264,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
     "analyze": cmd_analyze, "check": cmd_check, "compare": cmd_compare, "serve": cmd_serve,
-    "demo": cmd_demo,
+    "demo": cmd_demo, "repair": cli_repair.cmd_repair,
 }
 
 

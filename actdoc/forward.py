@@ -175,24 +175,35 @@ def with_forward_pass(dump: Dump, probe: str | Path | None = None,
         for close in closers:
             close()
         raise
-    layers = []
-    for index, layer in enumerate(dump.layers):
-        preact, output = ForwardSource(forward, index, 0), ForwardSource(forward, index, 1)
-        sources = {**layer.sources, "preact": preact, "output": output}
-        arrays = {**layer.info.arrays,
-                  "preact": ArrayInfo(preact.shape, str(preact.dtype)),
-                  "output": ArrayInfo(output.shape, str(output.dtype))}
-        kind_note = "; ".join(p for p in (layer.info.kind_note, note) if p)
-        info = dataclasses.replace(layer.info, samples=forward.samples, spatial_shape=(),
-                                   arrays=arrays, kind_note=kind_note)
-        layers.append(Layer(info=info, sources=sources))
 
     def close() -> None:  # the probe file only: ``dump`` stays its opener's to close
         for closer in closers:
             closer()
 
+    return forward_dump(dump, forward, note, close)
+
+
+def forward_dump(dump: Dump, forward: ForwardPass, note: str = "",
+                 closer=None) -> Dump:
+    """``dump``'s layers with their preact and output computed by ``forward`` (weights and
+    biases taken from ``forward``, so a repaired network can be analysed before it is saved)."""
+    from actdoc.io.memory import MemorySource
+
+    layers = []
+    for index, layer in enumerate(dump.layers):
+        preact, output = ForwardSource(forward, index, 0), ForwardSource(forward, index, 1)
+        sources = {"weight": MemorySource(forward.weights[index]),
+                   "preact": preact, "output": output}
+        if forward.biases[index] is not None:
+            sources["bias"] = MemorySource(forward.biases[index])
+        arrays = {name: ArrayInfo(tuple(source.shape), str(np.dtype(source.dtype)))
+                  for name, source in sources.items()}
+        kind_note = "; ".join(p for p in (layer.info.kind_note, note) if p)
+        info = dataclasses.replace(layer.info, samples=forward.samples, spatial_shape=(),
+                                   arrays=arrays, kind_note=kind_note)
+        layers.append(Layer(info=info, sources=sources))
     return Dump(path=dump.path, format=dump.format, layers=tuple(layers),
-                samples=forward.samples, probe_input=source, closer=close)
+                samples=forward.samples, probe_input=forward.probe, closer=closer)
 
 
 __all__ = ["ForwardPass", "ForwardSource", "with_forward_pass", "dense_chain", "forward_pass_of",
