@@ -139,11 +139,11 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
     workers = getattr(args, "workers", None)
     if workers is not None and workers < 1:
         raise ActdocError(f"--workers must be at least 1, not {workers}")
-    cli_repair.synthetic_warning(args)
     findings = analyze_target(target, settings, scheduler=scheduler, progress=ProgressBar(label),
                               activations=getattr(args, "activation", ()), workers=workers,
                               digest=digest and hashing is None, probe=getattr(args, "probe", None),
                               synthetic_probe=getattr(args, "synthetic_probe", None))
+    cli_repair.synthetic_warning(args)
     if hashing is not None:
         try:
             sha256 = hashing.result()

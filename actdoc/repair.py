@@ -154,6 +154,7 @@ def recycle(dump: Dump, probe, settings: Settings | None = None, seed: int = 0,
     network it cannot repair: no weights, convolution kernels, no probe.
     """
     settings = settings or Settings()
+    dense_chain(dump, None, "the probe")
     if probe is None:
         raise InvalidDump(f"{describe(dump.path)}: has no probe to find and check dead units "
                           f"on; give one with --probe FILE (or store /probe/input in the dump)")

@@ -1,0 +1,132 @@
+"""The forward pass of weight-only checkpoints against scikit-learn's own MLPClassifier.
+
+scikit-learn's MLPClassifier is trained on its bundled digits (load_digits) with plain SGD at a
+high learning rate, which silences many ReLU units while the network still classifies well.
+Its ``coefs_`` and ``intercepts_`` are saved as a state dict (safetensors via the safetensors
+package's numpy ``save_file``, and NPZ as docs/contract.md section 3 describes), the inputs as a
+``.npy`` probe. actdoc's forward pass must reproduce scikit-learn's own hidden activations
+(``MLPClassifier._forward_pass``, the function ``predict`` uses) and its softmax outputs
+(``predict_proba``, public), and actdoc's dead units must be exactly the units scikit-learn's
+activations leave at zero on every sample.
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+
+import numpy as np
+import pytest
+
+sklearn = pytest.importorskip("sklearn", reason="scikit-learn is the reference here")
+from sklearn.datasets import load_digits  # noqa: E402
+from sklearn.exceptions import ConvergenceWarning  # noqa: E402
+from sklearn.neural_network import MLPClassifier  # noqa: E402
+
+from actdoc.analysis import analyze  # noqa: E402
+from actdoc.cli import main  # noqa: E402
+from actdoc.forward import with_forward_pass  # noqa: E402
+from actdoc.io import open_dump  # noqa: E402
+
+
+@pytest.fixture(scope="module")
+def trained():
+    X, y = load_digits(return_X_y=True)
+    X = X / 16.0
+    clf = MLPClassifier(hidden_layer_sizes=(64, 32), activation="relu", solver="sgd",
+                        learning_rate_init=0.5, max_iter=30, random_state=0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        clf.fit(X, y)
+    activations = clf._forward_pass([X] + [None] * (clf.n_layers_ - 1))
+    return clf, X, activations
+
+
+def state_dict(clf) -> dict[str, np.ndarray]:
+    # scikit-learn stores coefs_[i] as [fan_in, units]; the state-dict layout is [units, fan_in]
+    names = ["hidden1", "hidden2", "out"]
+    out = {}
+    for name, w, b in zip(names, clf.coefs_, clf.intercepts_):
+        out[f"{name}.weight"] = np.ascontiguousarray(w.T)
+        out[f"{name}.bias"] = b
+    return out
+
+
+@pytest.fixture(params=["safetensors", "npz"])
+def checkpoint(request, trained, tmp_path):
+    clf, X, _ = trained
+    path = tmp_path / f"mlp.{request.param}"
+    if request.param == "safetensors":
+        from safetensors.numpy import save_file
+
+        save_file(state_dict(clf), str(path))
+    else:
+        with open(path, "wb") as handle:
+            np.savez(handle, **state_dict(clf))
+    np.save(tmp_path / "probe.npy", X)
+    return path, tmp_path / "probe.npy"
+
+
+def test_forward_pass_reproduces_sklearn(trained, checkpoint):
+    clf, X, activations = trained
+    path, probe = checkpoint
+    with open_dump(path, activations=["relu"]) as dump:
+        forward = with_forward_pass(dump, probe=probe)
+        try:
+            assert forward.samples == X.shape[0]
+            for layer, expected in zip(forward.layers[:2], activations[1:3]):
+                y = np.concatenate([b[1].copy() for b in layer.paired_blocks(500)])
+                np.testing.assert_allclose(y, expected, rtol=1e-12, atol=1e-12)
+            z = np.concatenate([b[0].copy() for b in forward.layers[2].paired_blocks(500)])
+            softmax = np.exp(z - z.max(axis=1, keepdims=True))
+            softmax /= softmax.sum(axis=1, keepdims=True)
+            np.testing.assert_allclose(softmax, clf.predict_proba(X), rtol=1e-10, atol=1e-12)
+            findings = analyze(forward, digest=False)
+        finally:
+            forward.close()
+    for name, acts in zip(("hidden1", "hidden2"), activations[1:3]):
+        silent = set(np.flatnonzero((acts > 0).sum(axis=0) == 0).tolist())
+        dead = {u for f in findings.for_layer(name) if f.check == "dead" for u in f.units}
+        assert dead == silent
+    assert silent  # the high learning rate did silence units (else the test proves little)
+
+
+def test_command_line_probe_gives_the_same_dead_sets(trained, checkpoint, capsys):
+    _, _, activations = trained
+    path, probe = checkpoint
+    assert main(["analyze", str(path), "--activation", "relu", "--probe", str(probe),
+                 "--format", "json"]) == 0
+    document = json.loads(capsys.readouterr().out)
+    assert document["source"]["samples"] == activations[0].shape[0]
+    for name, acts in zip(("hidden1", "hidden2"), activations[1:3]):
+        silent = sorted(np.flatnonzero((acts > 0).sum(axis=0) == 0).tolist())
+        dead = [f["units"] for f in document["findings"]
+                if f["layer"] == name and f["check"] == "dead"]
+        assert dead == [silent]
+        layer = next(entry for entry in document["layers"] if entry["name"] == name)
+        assert "forward pass over the probe file probe.npy" in layer["activation_note"]
+
+
+def test_synthetic_probe_is_loud(trained, checkpoint, capsys):
+    path, _ = checkpoint
+    assert main(["analyze", str(path), "--activation", "relu", "--synthetic-probe", "300",
+                 "--format", "json"]) == 0
+    captured = capsys.readouterr()
+    assert "WARNING" in captured.err and "SYNTHETIC" in captured.err
+    document = json.loads(captured.out)
+    assert document["source"]["samples"] == 300
+    assert all("SYNTHETIC" in layer["activation_note"] for layer in document["layers"])
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--probe", "missing.npy"], "no such probe file"),
+    (["--probe", "narrow.npy"], "takes 64 inputs but the probe file narrow.npy gives 10"),
+    (["--probe", "probe.npy", "--synthetic-probe", "10"], "not both"),
+])
+def test_probe_errors_are_one_sentence(checkpoint, capsys, monkeypatch, args, message):
+    path, probe = checkpoint
+    np.save(probe.parent / "narrow.npy", np.zeros((5, 10)))
+    monkeypatch.chdir(probe.parent)
+    assert main(["analyze", str(path), "--activation", "relu", *args]) == 2
+    err = capsys.readouterr().err
+    assert message in err and err.count("\n") == 1
