@@ -59,8 +59,12 @@ class TensorSource:
                 count = math.prod(self.shape)
                 raw = np.fromfile(self.path, np.dtype("<u2"), count, offset=self._offset)
                 return (raw.astype(np.uint32) << 16).view(np.float32).reshape(self.shape)
-            from safetensors import safe_open
-
+            try:
+                from safetensors import safe_open
+            except ImportError:
+                raise UnreadableDump(f"{describe(self.path)}: reading safetensors files needs "
+                                     f"the 'safetensors' package (pip install "
+                                     f"'actdoc[safetensors]')") from None
             with safe_open(str(self.path), framework="np") as handle:
                 return np.asarray(handle.get_tensor(self.key))
         except (OSError, ValueError, RuntimeError) as exc:
