@@ -109,7 +109,7 @@ def test_registry_finds_every_check_in_exclusivity_order():
     names = [c.name for c in all_checks()]
     assert set(names) == {"non_finite", "dead", "dormant", "saturated", "near_binary",
                           "linear_regime", "constant", "vanishing_signal", "exploding_signal",
-                          "init_scale"}
+                          "init_scale", "rarely_fires", "zero_weights", "duplicate"}
     ranked = [c.name for c in all_checks() if c.rank is not None]
     assert ranked == ["dead", "dormant", "saturated", "near_binary", "linear_regime",
                       "constant"]
