@@ -13,6 +13,7 @@ import sys
 from pathlib import Path
 
 from actdoc.errors import ActdocError
+from actdoc.escaping import visible
 
 EXIT_OK = 0
 
@@ -96,8 +97,8 @@ def cmd_repair(args: argparse.Namespace) -> int:
         finally:
             if args.probe is not None:
                 probe.close()
-    for line in report.lines():
-        print(line)
-    print(f"wrote {written} to {output} ({report.recycled} unit(s) recycled, seed "
-          f"{report.seed}); analyse it to confirm")
+    for line in report.lines():  # layer names come from the file: shown, never obeyed
+        print(visible(line))
+    print(visible(f"wrote {written} to {output} ({report.recycled} unit(s) recycled, seed "
+                  f"{report.seed}); analyse it to confirm"))
     return EXIT_OK
