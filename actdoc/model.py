@@ -132,6 +132,9 @@ class LayerInfo:
     negative_slope: float = 0.01
     threshold: float = 0.0
     kind_note: str = ""
+    #: preact equals output exactly and is never negative on the first block: z was probably
+    #: recorded after an in-place activation overwrote it (docs/dump-layout.md).
+    in_place_suspect: bool = False
 
     @property
     def observations(self) -> int:

@@ -103,16 +103,18 @@ def resolve_kind(raw: RawDump, layer: RawLayer) -> tuple[ActivationKind, Activat
             found: dict[str, Any] = {}
             if kind is not ActivationKind.LINEAR and preact is not None and output is not None:
                 found["note"] = in_place_note(preact, output)
+                found["in_place"] = bool(found["note"])
             return kind, ActivationSource.DECLARED, found
         guess = infer_kind(preact, output)
-        note = guess.note
+        note, suspect = guess.note, ""
         if preact is not None and output is not None:
-            note = "; ".join(part for part in (note, in_place_note(preact, output)) if part)
+            suspect = in_place_note(preact, output)
+            note = "; ".join(part for part in (note, suspect) if part)
     except (OSError, ValueError, EOFError) as exc:
         raise UnreadableDump(
             f"{describe(raw.path, layer.name)}: reading the activations to infer the layer's "
             f"kind failed ({exc})") from None
-    found = {"negative_slope": guess.negative_slope, "note": note}
+    found = {"negative_slope": guess.negative_slope, "note": note, "in_place": bool(suspect)}
     if guess.threshold is not None:
         found["threshold"] = guess.threshold
     return guess.kind, ActivationSource.INFERRED, found
@@ -277,6 +279,7 @@ def assemble(raw: RawDump) -> Dump:
             negative_slope=0.01 if slope is None else float(slope),
             threshold=0.0 if threshold is None else float(threshold),
             kind_note=str(found.get("note", "")),
+            in_place_suspect=bool(found.get("in_place", False)),
         )
         layers.append(Layer(info=info, sources=dict(stored.arrays)))
     samples = max((layer.info.samples for layer in layers), default=0)

@@ -109,7 +109,8 @@ def test_registry_finds_every_check_in_exclusivity_order():
     names = [c.name for c in all_checks()]
     assert set(names) == {"non_finite", "dead", "dormant", "saturated", "near_binary",
                           "linear_regime", "constant", "vanishing_signal", "exploding_signal",
-                          "init_scale", "rarely_fires", "zero_weights", "duplicate"}
+                          "init_scale", "rarely_fires", "zero_weights", "duplicate",
+                          "in_place_record"}
     ranked = [c.name for c in all_checks() if c.rank is not None]
     assert ranked == ["dead", "dormant", "saturated", "near_binary", "linear_regime",
                       "constant"]

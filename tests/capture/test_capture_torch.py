@@ -127,6 +127,7 @@ def test_in_place_relu_keeps_the_negative_preacts(tmp_path):
         np.testing.assert_array_equal(stored, z)
         findings = analyze(dump, digest=False)
     assert findings.layer("fc1").info.kind_note == ""
+    assert not [f for f in findings.findings if f.check == "in_place_record"]
 
 
 def test_cnn_channels_first(tmp_path):
@@ -195,5 +196,6 @@ def test_old_snippet_pattern_is_flagged(tmp_path):
                           bias=fc.bias.detach().numpy(), preact=z, output=y.numpy())
     with open_dump(tmp_path / "snippet.h5") as dump:
         assert "in-place" in dump.layer("fc1").info.kind_note
-        document_note = analyze(dump, digest=False).layer("fc1").info.kind_note
-    assert "in-place" in document_note
+        findings = analyze(dump, digest=False)
+    assert "in-place" in findings.layer("fc1").info.kind_note
+    assert [f.layer for f in findings.findings if f.check == "in_place_record"] == ["fc1"]
