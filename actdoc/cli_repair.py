@@ -53,8 +53,8 @@ def register(sub) -> None:
     repair.add_argument("--activation", action="append", default=[], metavar="KIND|LAYER=KIND",
                         help="activation kinds, as for analyze")
     repair.add_argument("--layer", dest="layers", action="append", default=[], metavar="NAME",
-                        help="repair only this layer (repeatable; default: every rectified "
-                             "ReLU layer that has a next layer)")
+                        help="repair only this layer (repeatable; default: every ReLU layer "
+                             "that has a next layer)")
     repair.add_argument("--dead-only", action="store_true",
                         help="recycle only units that never fire (outputs then stay unchanged "
                              "on every probe sample)")
