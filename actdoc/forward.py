@@ -136,12 +136,17 @@ def with_forward_pass(dump: Dump, probe: str | Path | None = None,
     """``dump`` itself, or a Dump whose activations are the forward pass over a probe.
 
     The pass runs when ``probe`` (a probe file) or ``synthetic`` (a count of standard normal
-    samples) is given, or when the dump holds weights only and a ``/probe/input``. A dump that
+    samples) is given, or when the dump holds weights only and a ``/probe/input`` that its
+    layers chain from (otherwise the dump is returned as it is). A dump that
     already holds activations keeps them; asking for a probe on it is an error. Closing the
     returned Dump closes the probe file only; ``dump`` stays open until its opener closes it.
     """
     if probe is None and synthetic is None:
         if has_activations(dump) or dump.probe_input is None:
+            return dump
+        try:  # unasked: a network that is no dense chain keeps its weights-only analysis
+            dense_chain(dump, features_of(dump.probe_input), "/probe/input")
+        except InvalidDump:
             return dump
     if has_activations(dump):
         raise InvalidDump(f"{describe(dump.path)}: already holds recorded activations; a probe "

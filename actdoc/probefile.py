@@ -6,7 +6,7 @@
 - an HDF5 file: the dataset ``probe/input`` (an actdoc dump, or a file written for the purpose),
   else the file's only dataset at the root; read in blocks of rows;
 - an NPZ archive: the member ``probe/input``, else its only member (read whole: numpy cannot
-  hand out rows of a zip member).
+  hand out rows of a zip member; members expanding past the NPZ member limit are refused).
 
 Each is refused with one sentence when it holds no array of samples, an array of objects, or
 anything but real numbers. ``SyntheticProbe`` draws standard normal inputs N(0, I) block by
@@ -22,7 +22,8 @@ from typing import Callable
 
 import numpy as np
 
-from actdoc.errors import InvalidDump, UnreadableDump, UnsafeDump, describe
+from actdoc.errors import DumpTooLarge, InvalidDump, UnreadableDump, UnsafeDump, describe
+from actdoc.io.limits import DEFAULT_MEMBER_BYTES
 from actdoc.io.memory import MemorySource
 
 NPY_MAGIC = b"\x93NUMPY"
@@ -138,7 +139,12 @@ def _hdf5(path: Path):
         raise
 
 
-def _npz(path: Path):
+def _npz(path: Path, limit: int):
+    with zipfile.ZipFile(path) as members:  # sizes from the zip directory, before inflating
+        for info in members.infolist():
+            if info.file_size > limit:
+                raise DumpTooLarge(f"{describe(path, None, info.filename)}: expands to "
+                                   f"{info.file_size} bytes, past the limit of {limit}")
     with np.load(path, allow_pickle=False) as archive:
         names = list(archive.files)
         key = PROBE_KEY if PROBE_KEY in names else (names[0] if len(names) == 1 else None)
@@ -156,8 +162,9 @@ def _npz(path: Path):
     return source
 
 
-def open_probe(path: str | Path):
-    """An ArraySource (with ``close``) over the probe inputs stored in ``path``."""
+def open_probe(path: str | Path, limit: int = DEFAULT_MEMBER_BYTES):
+    """An ArraySource (with ``close``) over the probe inputs stored in ``path``; an NPZ member
+    is read whole, so one expanding past ``limit`` bytes is refused first."""
     path = Path(path)
     where = describe(path)
     if not path.is_file():
@@ -170,7 +177,7 @@ def open_probe(path: str | Path):
         if head == HDF5_MAGIC:
             return _hdf5(path)
         if head.startswith(ZIP_MAGIC):
-            return _npz(path)
+            return _npz(path, limit)
     except (OSError, zipfile.BadZipFile, EOFError) as exc:
         raise UnreadableDump(f"{where}: the probe file cannot be read "
                              f"({getattr(exc, 'strerror', None) or exc})") from None

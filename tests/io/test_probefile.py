@@ -77,3 +77,20 @@ def test_synthetic_probe_is_standard_normal_and_stable():
     # mean within 4 standard errors of 0, variance within 4 of 1 (normal moments, common practice)
     assert np.all(np.abs(whole.mean(axis=0)) < 4 / np.sqrt(5000))
     assert np.all(np.abs(whole.var(axis=0) - 1) < 4 * np.sqrt(2 / 5000))
+
+
+def test_npz_member_past_the_limit_is_refused_before_reading(tmp_path):
+    with open(tmp_path / "big.npz", "wb") as handle:
+        np.savez_compressed(handle, x=np.zeros((2000, 100)))
+    with pytest.raises(ActdocError, match="past the limit of 1000"):
+        open_probe(tmp_path / "big.npz", limit=1000)
+
+
+def test_unasked_probe_that_does_not_chain_keeps_the_weights_only_analysis(tmp_path):
+    write_dump(tmp_path / "conv.h5", {"conv": {"activation": "relu",
+                                               "weight": RNG.normal(size=(4, 1, 3, 3))}},
+               probe_input=X)
+    with open_dump(tmp_path / "conv.h5") as dump:
+        assert with_forward_pass(dump) is dump
+        with pytest.raises(ActdocError, match="convolution kernel"):
+            with_forward_pass(dump, probe=None, synthetic=10)
