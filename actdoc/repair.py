@@ -70,6 +70,7 @@ class RepairReport:
     #: The repaired network over the probe (its weights, biases and activations).
     forward: ForwardPass
     #: Samples on which a recycled (dormant) unit fired before, where outputs may move.
+    dead_only: bool = False
     touched_samples: int = 0
     touched_change: float = 0.0
     argmax_changed: int = 0
@@ -87,7 +88,8 @@ class RepairReport:
                 continue
             out.append(
                 f"{layer.name} ({layer.kind}, {layer.units} units): recycled "
-                f"{len(layer.recycled)} dead or dormant unit(s) with fresh {layer.init} weights "
+                f"{len(layer.recycled)} {'dead' if self.dead_only else 'dead or dormant'} "
+                f"unit(s) with fresh {layer.init} weights "
                 f"(std {layer.std:.3g}); {layer.active_again} of them active again on the probe, "
                 f"{layer.above_dormant} on at least the dormant share")
         untouched = self.samples - self.touched_samples
@@ -213,7 +215,8 @@ def recycle(dump: Dump, probe, settings: Settings | None = None, seed: int = 0,
                                          init, std))
     return RepairReport(samples=after.samples, seed=seed, layers=tuple(report_layers),
                         max_output_change=outcome["untouched"], tolerance=tolerance,
-                        forward=after, touched_samples=int(outcome["touched_samples"]),
+                        forward=after, dead_only=dead_only,
+                        touched_samples=int(outcome["touched_samples"]),
                         touched_change=outcome["touched"],
                         argmax_changed=int(outcome["argmax_changed"]))
 
