@@ -80,6 +80,7 @@ class Job:
         data["read_limits"] = (None if self.read_limits is None
                                else dataclasses.asdict(self.read_limits))
         data["memory_bytes"] = None if memory_mb is None else int(memory_mb) * 1024**2
+        data["parent"] = os.getpid()
         return json.dumps(data)
 
 

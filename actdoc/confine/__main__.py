@@ -6,8 +6,12 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import sys
 from pathlib import Path
+
+#: Linux prctl option: the signal this process gets when the thread that started it ends.
+PR_SET_PDEATHSIG = 1
 
 
 def _protocol_channel():
@@ -17,6 +21,19 @@ def _protocol_channel():
     os.dup2(2, 1)
     sys.stdout = sys.stderr
     return channel
+
+
+def die_with_parent(parent: int | None) -> None:
+    """On Linux, be killed when the server that started this process dies, so a killed server
+    leaves no child behind working on a file (elsewhere the parent's own kill must do)."""
+    try:
+        import ctypes
+
+        ctypes.CDLL(None, use_errno=True).prctl(PR_SET_PDEATHSIG, signal.SIGKILL)
+    except (OSError, AttributeError):
+        return
+    if parent is not None and os.getppid() != parent:  # it died before prctl took effect
+        os._exit(1)
 
 
 def vm_size_bytes() -> int:
@@ -97,6 +114,7 @@ def main() -> int:
         channel.flush()
 
     job = json.loads(sys.stdin.read())
+    die_with_parent(job.get("parent"))
     # Imported before the memory limit is set, so the limit bounds the file's work only.
     import numpy  # noqa: F401
     import h5py  # noqa: F401
