@@ -67,12 +67,15 @@ def multipart(path: Path, name: str | None = None) -> tuple[bytes, str]:
 
 
 def request(host: str, method: str, url: str, body: bytes | None = None,
-            headers: dict | None = None, timeout: float = 30.0) -> tuple[int, dict, bytes]:
-    """One request on a fresh connection: (status, headers, body)."""
+            headers: dict | None = None, timeout: float = 30.0,
+            chunked: bool = False) -> tuple[int, dict, bytes]:
+    """One request on a fresh connection: (status, headers, body); ``chunked`` sends the body
+    with chunked transfer coding (no Content-Length)."""
     address, port = host.rsplit(":", 1)
     connection = http.client.HTTPConnection(address, int(port), timeout=timeout)
     try:
-        connection.request(method, url, body=body, headers=headers or {})
+        connection.request(method, url, body=iter([body]) if chunked else body,
+                           headers=headers or {}, encode_chunked=chunked)
         response = connection.getresponse()
         return response.status, dict(response.getheaders()), response.read()
     finally:
