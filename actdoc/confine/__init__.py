@@ -30,7 +30,7 @@ import subprocess
 import sys
 import tempfile
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
@@ -49,7 +49,7 @@ class JobLimits:
 
     ``check_seconds`` bounds opening and validating the file, ``analysis_seconds`` the
     measuring that follows; ``memory_mb`` is the address space the child may add to its own
-    start-up size and the size of the file it maps (``None``: no limit of that kind).
+    start-up size and twice the size of the file it maps (``None``: no limit of that kind).
     """
 
     check_seconds: float | None = 60.0
@@ -93,7 +93,6 @@ class Outcome:
     message: str = ""
     checked: dict | None = None
     returncode: int | None = None
-    details: dict = field(default_factory=dict)
 
     @property
     def ok(self) -> bool:
@@ -254,7 +253,7 @@ def _conclude(name: str, phase: str, verdict: dict | None, checked, returncode: 
     if kind == "internal":
         detail = f"{verdict.get('type', 'Error')}: {verdict.get('message', '')}"
         return Outcome("internal", f"{name}: the analysis stopped on an internal error "
-                                   f"({detail})", checked, returncode, {"error": detail})
+                                   f"({detail})", checked, returncode)
     how = _signal_name(-returncode) if returncode < 0 else f"exit status {returncode}"
     return Outcome("crashed", f"{name}: the process that had to {_doing(phase)} it stopped "
                               f"without an answer ({how}); it may be malformed",

@@ -49,8 +49,9 @@ def vm_size_bytes() -> int:
 
 
 def limit_memory(budget: int | None, target: str) -> None:
-    """Cap the address space: what is mapped now, plus the file (read through a map), plus
-    ``budget`` bytes. Past it, allocations fail (MemoryError) instead of taking the machine."""
+    """Cap the address space: what is mapped now, plus twice the file (read through a map, and
+    mapped again to hash it), plus ``budget`` bytes. Past it, allocations fail (MemoryError)
+    instead of taking the machine."""
     if budget is None:
         return
     import resource
@@ -59,7 +60,7 @@ def limit_memory(budget: int | None, target: str) -> None:
         file_bytes = Path(target).stat().st_size if Path(target).is_file() else 0
     except OSError:
         file_bytes = 0
-    limit = vm_size_bytes() + file_bytes + int(budget)
+    limit = vm_size_bytes() + 2 * file_bytes + int(budget)
     resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
 
 

@@ -113,6 +113,12 @@ class Runner:
                                    on_progress=progress, on_start=started)
             self.current = None
             self._conclude(record, outcome, scratch, attempts)
+        except Exception as error:  # a bug or the machine (no process, no disk), not the file
+            log.exception("analysis of %s failed", record.name)
+            if self.catalog.exists(dump_id):
+                self.catalog.update(dump_id, status="failed",
+                                    error=f"{record.name}: the analysis stopped on an internal "
+                                          f"error ({type(error).__name__}: {error})")
         finally:
             self.current = None
             shutil.rmtree(scratch, ignore_errors=True)
