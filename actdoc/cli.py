@@ -100,7 +100,7 @@ def build_parser() -> argparse.ArgumentParser:
                        help="where uploads and analyses are kept (default: a per-user folder)")
     serve.add_argument("--demo", action="store_true", help="load the bundled demo dumps")
     serve.add_argument("--token", help="access token required off loopback (default: random)")
-    serve.add_argument("--max-upload", type=int, default=2048, metavar="MB",
+    serve.add_argument("--max-upload", type=int, default=2048, metavar="MiB",
                        help="largest upload, answered 413 past it (default: 2048)")
     serve.add_argument("--check-time", type=float, default=60.0, metavar="SECONDS",
                        help="time allowed to open and check one upload (default: 60)")
