@@ -76,6 +76,20 @@ def test_a_child_that_dies_is_retried_then_failed_after_the_attempts(tmp_path):
                           "answer (signal 9 (SIGKILL)); it may be malformed")
 
 
+def test_removing_a_dump_stops_its_check(tmp_path):
+    store = Workspace(tmp_path / "ws", job_limits=JobLimits(check_seconds=120))
+    record, _ = store.ingest_path(hanging_dump(tmp_path))
+    store.start()
+    deadline = time.monotonic() + 60
+    while store.runner.current is None:
+        assert time.monotonic() < deadline
+        time.sleep(0.05)
+    child = store.runner.current[1]
+    store.delete(record.id)
+    child.wait(timeout=30)  # killed, not left to run out its 120 s
+    assert store.list() == [] and list((store.root / "dumps").iterdir()) == []
+
+
 SERVER_THAT_GETS_KILLED = textwrap.dedent("""
     import sys, time
     from actdoc.confine import JobLimits
