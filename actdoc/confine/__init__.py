@@ -41,6 +41,8 @@ log = logging.getLogger(__name__)
 
 #: The last words of the child's standard error kept for the log when a job ends badly.
 STDERR_TAIL_BYTES = 4096
+#: Longest protocol line kept; the child's lines are short JSON objects.
+MAX_LINE_BYTES = 1024 * 1024
 
 
 @dataclass(frozen=True)
@@ -135,30 +137,26 @@ def run(job: Job, limits: JobLimits, name: str, *,
     sentences. Blocks until the child ends or is killed; the calling process never runs the
     readers, so it keeps answering whatever the file does. With ``log_failures`` a job that
     ends badly is logged with the tail of the child's standard error (for a server's log)."""
-    err = tempfile.TemporaryFile()
-    process = subprocess.Popen(
-        [sys.executable, "-m", "actdoc.confine"], stdin=subprocess.PIPE,
-        stdout=subprocess.PIPE, stderr=err, env=child_environment(), start_new_session=True,
-        close_fds=True)
-    try:
-        if on_start is not None:
-            on_start(process)
-        outcome = _watch(process, job, limits, name, on_checked, on_progress)
-    except BaseException:
-        _kill(process)
-        raise
-    finally:
-        if process.poll() is None:
-            _kill(process)
-        process.stdout.close()
-        if process.stdin and not process.stdin.closed:
-            process.stdin.close()
-    if log_failures and not outcome.ok:
-        err.seek(max(0, err.seek(0, os.SEEK_END) - STDERR_TAIL_BYTES))
-        tail = err.read().decode("utf-8", "replace").strip()
-        log.warning("confined job on %s ended %s: %s%s", name, outcome.state, outcome.message,
-                    f"\nchild's stderr (tail):\n{tail}" if tail else "")
-    err.close()
+    with tempfile.TemporaryFile() as err:
+        process = subprocess.Popen(
+            [sys.executable, "-m", "actdoc.confine"], stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE, stderr=err, env=child_environment(),
+            start_new_session=True, close_fds=True)
+        try:
+            if on_start is not None:
+                on_start(process)
+            outcome = _watch(process, job, limits, name, on_checked, on_progress)
+        finally:
+            if process.poll() is None:
+                _kill(process)
+            process.stdout.close()
+            if process.stdin and not process.stdin.closed:
+                process.stdin.close()
+        if log_failures and not outcome.ok:
+            err.seek(max(0, err.seek(0, os.SEEK_END) - STDERR_TAIL_BYTES))
+            tail = err.read().decode("utf-8", "replace").strip()
+            log.warning("confined job on %s ended %s: %s%s", name, outcome.state,
+                        outcome.message, f"\nchild's stderr (tail):\n{tail}" if tail else "")
     return outcome
 
 
@@ -189,6 +187,7 @@ def _watch(process: subprocess.Popen, job: Job, limits: JobLimits, name: str,
                 break
             pending += chunk
             *lines, pending = pending.split(b"\n")
+            pending = pending[-MAX_LINE_BYTES:]  # only a runaway line is this long
             for line in lines:
                 event = _parse(line)
                 kind = event.get("event")
