@@ -69,6 +69,12 @@ def _input_options(parser: argparse.ArgumentParser) -> None:
                         help="measuring threads of the local engine (default: the cores, "
                              "at most 3)")
     cli_repair.add_probe_options(parser)
+    parser.add_argument("--time-limit", type=float, metavar="SECONDS",
+                        help="open and measure the dump in a separate process, stopped when "
+                             "checking or measuring takes longer than this (docs/dashboard.md)")
+    parser.add_argument("--memory-limit", type=int, metavar="MB",
+                        help="open and measure the dump in a separate process that may use "
+                             "at most this much memory beyond its start-up and the file")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -95,6 +101,17 @@ def build_parser() -> argparse.ArgumentParser:
                        help="where uploads and analyses are kept (default: a per-user folder)")
     serve.add_argument("--demo", action="store_true", help="load the bundled demo dumps")
     serve.add_argument("--token", help="access token required off loopback (default: random)")
+    serve.add_argument("--max-upload", type=int, default=2048, metavar="MiB",
+                       help="largest upload, answered 413 past it (default: 2048)")
+    serve.add_argument("--check-time", type=float, default=60.0, metavar="SECONDS",
+                       help="time allowed to open and check one upload (default: 60)")
+    serve.add_argument("--analysis-time", type=float, default=1800.0, metavar="SECONDS",
+                       help="time allowed to measure one upload (default: 1800)")
+    serve.add_argument("--memory-limit", type=int, default=4096, metavar="MB",
+                       help="memory allowed to check and measure one upload (default: 4096)")
+    serve.add_argument("--read-limit", action="append", default=[], metavar="NAME=VALUE",
+                       help="change one limit on what an upload may declare: member_bytes, "
+                            "total_bytes, units_per_layer, weight_bytes (a number or 'none')")
 
     compare = sub.add_parser(
         "compare", help="what changed between analyses of checkpoints of one model")
@@ -125,6 +142,21 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
     """
     target = path or args.dump
     scheduler = getattr(args, "scheduler", None)
+    workers = getattr(args, "workers", None)
+    if workers is not None and workers < 1:
+        raise ActdocError(f"--workers must be at least 1, not {workers}")
+    limits = _confinement(args)
+    if limits is not None:
+        from actdoc.confine import Job, analyse_in_child
+
+        job = Job(target=str(target), overrides=tuple(args.overrides),
+                  config=None if args.config is None else str(args.config),
+                  activations=tuple(getattr(args, "activation", ())), workers=workers,
+                  scheduler=scheduler, digest=digest,
+                  probe=None if getattr(args, "probe", None) is None else str(args.probe),
+                  synthetic_probe=getattr(args, "synthetic_probe", None))
+        cli_repair.synthetic_warning(args)
+        return analyse_in_child(job, limits, Path(target).name, ProgressBar(label))
     hashing = None
     if digest and scheduler is None and Path(target).is_file():
         from actdoc.digest import BackgroundDigest
@@ -136,9 +168,6 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
     from actdoc.cluster import analyze_target
 
     settings = load_settings(args.config, args.overrides)
-    workers = getattr(args, "workers", None)
-    if workers is not None and workers < 1:
-        raise ActdocError(f"--workers must be at least 1, not {workers}")
     findings = analyze_target(target, settings, scheduler=scheduler, progress=ProgressBar(label),
                               activations=getattr(args, "activation", ()), workers=workers,
                               digest=digest and hashing is None, probe=getattr(args, "probe", None),
@@ -152,6 +181,43 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
                               f"({err.strerror or err})") from None
         findings = replace(findings, source=replace(findings.source, sha256=sha256))
     return findings
+
+
+def _confinement(args: argparse.Namespace):
+    """The child-process limits asked for with --time-limit/--memory-limit, else None."""
+    seconds = getattr(args, "time_limit", None)
+    memory = getattr(args, "memory_limit", None)
+    if seconds is None and memory is None:
+        return None
+    if (seconds is not None and seconds <= 0) or (memory is not None and memory <= 0):
+        raise ActdocError("--time-limit and --memory-limit must be positive")
+    from actdoc.confine import JobLimits
+
+    return JobLimits(check_seconds=seconds, analysis_seconds=seconds, memory_mb=memory)
+
+
+def _read_limits(specs: Sequence[str]):
+    """ReadLimits.for_uploads() with the --read-limit NAME=VALUE changes applied."""
+    import dataclasses
+
+    from actdoc.io.limits import ReadLimits
+
+    limits = ReadLimits.for_uploads()
+    names = [f.name for f in dataclasses.fields(ReadLimits)]
+    for spec in specs:
+        name, _, value = spec.partition("=")
+        name = name.strip()
+        if name not in names:
+            raise ActdocError(f"--read-limit {spec}: the limits are {', '.join(names)}")
+        try:
+            number = None if value.strip().lower() == "none" else int(value)
+        except ValueError:
+            raise ActdocError(f"--read-limit {spec}: the value must be a whole number or "
+                              f"'none'") from None
+        if name == "member_bytes" and number is None:
+            raise ActdocError(f"--read-limit {spec}: member_bytes needs a number")
+        limits = dataclasses.replace(limits, **{name: number})
+    return limits
 
 
 def write_atomically(path: Path, text: str) -> None:
@@ -236,11 +302,18 @@ def cmd_compare(args: argparse.Namespace) -> int:
 
 
 def cmd_serve(args: argparse.Namespace) -> int:
+    from actdoc.confine import JobLimits
     from actdoc.web import serve
 
+    if min(args.max_upload, args.check_time, args.analysis_time, args.memory_limit) <= 0:
+        raise ActdocError("--max-upload, --check-time, --analysis-time and --memory-limit "
+                          "must be positive")
+    job_limits = JobLimits(check_seconds=args.check_time, analysis_seconds=args.analysis_time,
+                           memory_mb=args.memory_limit)
     try:
         serve(host=args.host, port=args.port, workspace=args.workspace, demo=args.demo,
-              token=args.token)
+              token=args.token, max_upload_bytes=args.max_upload * 1024**2,
+              read_limits=_read_limits(args.read_limit), job_limits=job_limits)
     except OSError as err:
         raise ActdocError(f"cannot serve the dashboard on {args.host}:{args.port}: "
                           f"{err.strerror or err}") from None

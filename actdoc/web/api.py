@@ -8,8 +8,7 @@ from flask import Blueprint, Response, current_app, jsonify, request, url_for
 from werkzeug.exceptions import BadRequest, NotFound
 
 from actdoc.reports import MEDIA_TYPES, render
-from actdoc.uploads import UploadSpool
-from actdoc.workspace import DumpRecord
+from actdoc.workspace import DumpRecord, UploadSpool
 
 blueprint = Blueprint("api", __name__, url_prefix="/api")
 
@@ -18,7 +17,7 @@ DOWNLOADS = {"json": "json", "csv": "csv", "md": "md", "txt": "text"}
 
 
 def state():
-    """The workspace and worker of the running app."""
+    """The workspace (with its runner) of the running app."""
     return current_app.extensions["actdoc"]
 
 
@@ -26,6 +25,7 @@ def receive_upload() -> tuple[DumpRecord, bool]:
     """Adopt this request's multipart field ``file`` into the workspace and queue it.
 
     Returns the record and whether it is new (False: the same bytes were already stored).
+    The readers check the file in the background runner, never inside this request.
     """
     if request.mimetype != "multipart/form-data":
         raise BadRequest("send the dump as multipart/form-data, in a field named 'file'")
@@ -38,7 +38,7 @@ def receive_upload() -> tuple[DumpRecord, bool]:
     else:
         record, created = workspace.ingest(upload.stream, upload.filename)
     if created:
-        state().worker.submit(record.id)
+        workspace.submit(record.id)
     return record, created
 
 

@@ -11,11 +11,12 @@ from werkzeug.exceptions import Forbidden, Unauthorized
 
 import actdoc
 from actdoc.web import api, assets, errors, pages, views
-from actdoc.web.worker import AnalysisWorker
 from actdoc.formatting import number, percent
 from actdoc.web.embed import embed_json, first_sentence
-from actdoc.uploads import UploadSpool
-from actdoc.workspace import DEFAULT_MAX_UPLOAD_BYTES, Workspace, default_workspace_dir
+from actdoc.confine import JobLimits
+from actdoc.io.limits import ReadLimits
+from actdoc.workspace import (DEFAULT_MAX_UPLOAD_BYTES, UploadSpool, Workspace,
+                              default_workspace_dir)
 
 #: Cookie that carries the access token after a visit to ``/?token=...`` (browsers cannot set
 #: an Authorization header on a plain page load).
@@ -44,11 +45,10 @@ class UploadRequest(Request):
 
 
 class State:
-    """What the blueprints share: the workspace and the background worker."""
+    """What the blueprints share: the workspace (with its background runner)."""
 
-    def __init__(self, workspace: Workspace, worker: AnalysisWorker, demo: bool):
+    def __init__(self, workspace: Workspace, demo: bool):
         self.workspace = workspace
-        self.worker = worker
         self.demo = demo
         #: In demo mode: bundled dump id -> (its demo_models.Demo, position among its files).
         self.demo_files: dict = {}
@@ -56,11 +56,16 @@ class State:
 
 def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
                token: str | None = None,
-               max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES) -> Flask:
+               max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES,
+               read_limits: ReadLimits | None = None,
+               job_limits: JobLimits | None = None) -> Flask:
     """Build the dashboard for the workspace in ``workspace_dir`` (default: the per-user one).
 
     ``token``, when given, is required on every request (``Authorization: Bearer``, or once as
     ``?token=`` which then sets a cookie). ``demo`` adds the bundled demo dumps to the workspace.
+    ``read_limits`` (default ``ReadLimits.for_uploads()``) bound what an uploaded file may
+    declare; ``job_limits`` the time and memory of each confined check and analysis
+    (docs/dashboard.md).
     """
     app = Flask("actdoc", template_folder=str(asset_folder("templates")),
                 static_folder=str(asset_folder("static")), static_url_path="/static")
@@ -72,9 +77,10 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
     app.json.sort_keys = False
 
     workspace = Workspace(workspace_dir or default_workspace_dir(),
-                          max_upload_bytes=max_upload_bytes)
-    worker = AnalysisWorker(workspace)
-    app.extensions["actdoc"] = State(workspace, worker, demo)
+                          max_upload_bytes=max_upload_bytes,
+                          read_limits=read_limits or ReadLimits.for_uploads(),
+                          job_limits=job_limits)
+    app.extensions["actdoc"] = State(workspace, demo)
 
     app.jinja_env.filters.update(embed_json=embed_json, first_sentence=first_sentence,
                                   number=number, percent=percent)
@@ -89,7 +95,7 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
 
     if demo:
         app.extensions["actdoc"].demo_files = add_demo_dumps(workspace)
-    worker.start()
+    workspace.start()
     return app
 
 

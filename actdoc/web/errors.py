@@ -14,8 +14,7 @@ from flask import Flask, jsonify, make_response, render_template, request
 from werkzeug.exceptions import HTTPException
 
 from actdoc.errors import ActdocError, DumpTooLarge, IncomparableDumps, UnsupportedFormat
-from actdoc.uploads import UploadTooLarge
-from actdoc.workspace import NotReady, UnknownDump
+from actdoc.workspace import NotReady, UnknownDump, UploadTooLarge
 
 log = logging.getLogger(__name__)
 

@@ -2,14 +2,64 @@
 
 from __future__ import annotations
 
+import json
 import secrets
 import sys
 from pathlib import Path
 from typing import TextIO
 
+from waitress.channel import HTTPChannel
+from waitress.server import BaseWSGIServer
+from waitress.task import ErrorTask
+
+from actdoc.confine import JobLimits
+from actdoc.io.limits import ReadLimits
 from actdoc.web.app import LOOPBACK_HOSTS, create_app
+from actdoc.workspace import DEFAULT_MAX_UPLOAD_BYTES
 
 DEFAULT_PORT = 8150
+#: Request-handling threads of the server.
+THREADS = 8
+
+
+class JsonErrorTask(ErrorTask):
+    """waitress's own error answers (a body past the upload limit, a malformed request) as
+    ``{"error": ...}`` like every other answer of the dashboard, not as plain text."""
+
+    def execute(self):
+        error = self.request.error
+        if error.code == 413:
+            limit = self.channel.server.adj.max_request_body_size
+            sentence = (f"the request passes the dashboard's upload limit of "
+                        f"{limit / 1024**2:.0f} MiB")
+        else:
+            sentence = f"waitress refused the request: {error.reason} ({error.body})"
+        body = json.dumps({"error": sentence}).encode("utf-8")
+        self.status = f"{error.code} {error.reason}"
+        self.response_headers.append(("Content-Type", "application/json"))
+        self.set_close_on_finish()
+        self.content_length = len(body)
+        self.write(body)
+
+
+class JsonErrorChannel(HTTPChannel):
+    error_task_class = JsonErrorTask
+
+
+def create_server(app, host: str = "127.0.0.1", port: int = DEFAULT_PORT,
+                  threads: int = THREADS):
+    """A waitress server for ``app`` whose body limit is the app's own: one upload limit
+    (``MAX_CONTENT_LENGTH``, from ``max_upload_bytes``), answered as JSON 413 whichever of
+    waitress and the app sees the body first."""
+    import waitress
+
+    sockets: dict = {}
+    server = waitress.create_server(app, map=sockets, host=host, port=port, threads=threads,
+                                    max_request_body_size=app.config["MAX_CONTENT_LENGTH"])
+    for dispatcher in list(sockets.values()):
+        if isinstance(dispatcher, BaseWSGIServer):
+            dispatcher.channel_class = JsonErrorChannel
+    return server
 
 
 def is_loopback(host: str) -> bool:
@@ -30,16 +80,18 @@ def address(host: str, port: int, token: str | None) -> str:
 
 def serve(host: str = "127.0.0.1", port: int = DEFAULT_PORT,
           workspace: str | Path | None = None, demo: bool = False, token: str | None = None,
-          *, out: TextIO = sys.stdout) -> None:
+          *, max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES,
+          read_limits: ReadLimits | None = None, job_limits: JobLimits | None = None,
+          out: TextIO = sys.stdout) -> None:
     """Serve the dashboard with waitress until interrupted, printing its address first.
 
     Bound to anything but a loopback address, every request needs the token (printed here).
+    The limits are create_app's (docs/dashboard.md).
     """
-    import waitress
-
     token = resolve_token(host, token)
-    app = create_app(workspace, demo=demo, token=token)
-    server = waitress.create_server(app, host=host, port=port, threads=8)
+    app = create_app(workspace, demo=demo, token=token, max_upload_bytes=max_upload_bytes,
+                     read_limits=read_limits, job_limits=job_limits)
+    server = create_server(app, host=host, port=port)
     print(f"actdoc dashboard on {address(host, server.effective_port, token)}", file=out)
     if token:
         print(f"every request needs the header 'Authorization: Bearer {token}' "

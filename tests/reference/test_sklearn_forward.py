@@ -107,6 +107,18 @@ def test_command_line_probe_gives_the_same_dead_sets(trained, checkpoint, capsys
         assert "forward pass over the probe file probe.npy" in layer["activation_note"]
 
 
+def test_probe_in_a_confined_child_gives_the_same_document(checkpoint, capsys):
+    """--time-limit runs the forward pass in the child process: the same findings document."""
+    path, probe = checkpoint
+    common = ["analyze", str(path), "--activation", "relu", "--probe", str(probe), "--format",
+              "json"]
+    assert main(common) == 0
+    plain = json.loads(capsys.readouterr().out)
+    assert main(common + ["--time-limit", "300"]) == 0
+    confined = json.loads(capsys.readouterr().out)
+    assert confined == plain
+
+
 def test_synthetic_probe_is_loud(trained, checkpoint, capsys):
     path, _ = checkpoint
     assert main(["analyze", str(path), "--activation", "relu", "--synthetic-probe", "300",

@@ -3,8 +3,7 @@ arriving twice at once. Nothing stored may be lost and nothing half-written may 
 
 from __future__ import annotations
 
-from actdoc import workspace as workspace_module
-from actdoc.workspace import Workspace
+from actdoc.workspace import Workspace, intake
 from tests.support.web import post_file
 
 #: Linux file systems (ext4, tmpfs, xfs) cap one path component at 255 bytes (common practice:
@@ -37,22 +36,22 @@ def test_names_with_nul_dots_and_separators_stay_inside_the_workspace(tmp_path):
 
 def test_the_same_bytes_uploaded_twice_at_once_keep_the_stored_file(tmp_path, planted_dump,
                                                                      monkeypatch):
-    """Upload B passes the readers while upload A of the same bytes is stored in full: A's file
-    must survive B (B's answer is A's dump)."""
+    """Upload B's format is being sniffed while upload A of the same bytes is stored in full:
+    A's file must survive B (B's answer is A's dump)."""
     store = Workspace(tmp_path / "ws")
     data = planted_dump.read_bytes()
     first, second = store.begin_upload("first.h5"), store.begin_upload("second.h5")
     for spool in (first, second):
         spool.write(data)
-    real_open = workspace_module._open_dump
+    real_sniff = intake.sniff_format
     stored = {}
 
-    def open_while_the_other_upload_lands(path):
+    def sniff_while_the_other_upload_lands(path):
         if path == second.path and not stored:
             stored["record"], _ = store.adopt(first)
-        return real_open(path)
+        return real_sniff(path)
 
-    monkeypatch.setattr(workspace_module, "_open_dump", open_while_the_other_upload_lands)
+    monkeypatch.setattr(intake, "sniff_format", sniff_while_the_other_upload_lands)
     record, created = store.adopt(second)
     assert not created and record == stored["record"] and record.name == "first.h5"
     assert store.dump_path(record).read_bytes() == data

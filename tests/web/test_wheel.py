@@ -26,4 +26,5 @@ def test_wheel_holds_templates_and_static_files(tmp_path):
         assert f"actdoc/templates/{name}" in names
     for name in static:
         assert f"actdoc/static/{name}" in names
-    assert "actdoc/web/app.py" in names and "actdoc/workspace.py" in names
+    assert "actdoc/web/app.py" in names and "actdoc/workspace/__init__.py" in names
+    assert "actdoc/confine/__main__.py" in names

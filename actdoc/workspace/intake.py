@@ -1,6 +1,9 @@
-"""Receiving an uploaded file: a safe stored name, and a spool that hashes and counts it as it
-streams into the workspace's ``tmp/`` folder. No Flask here: werkzeug writes into the spool as a
-plain file object.
+"""Upload intake: a safe stored name, a spool that hashes and counts an upload as it streams
+into the workspace's ``tmp/`` folder, and the quick look at its first bytes that tells HDF5 from
+NPZ. No Flask here: werkzeug writes into the spool as a plain file object.
+
+Nothing here parses the file: the readers run on it later, in a confined child process
+(actdoc/confine), so an upload request never waits for them and a hostile file cannot stall it.
 """
 
 from __future__ import annotations
@@ -12,6 +15,9 @@ import tempfile
 from pathlib import Path
 
 from actdoc.errors import ActdocError
+
+#: Bytes copied per write while streaming an upload from a plain stream.
+COPY_BLOCK_BYTES = 1024 * 1024
 
 
 class UploadTooLarge(ActdocError):
@@ -47,8 +53,8 @@ class UploadSpool:
 
     It is a writable file object (werkzeug's multipart parser can write straight into it), so an
     upload is stored once, never buffered whole in memory. Too many bytes raise UploadTooLarge.
-    The file type is left to the readers (``adopt``): they know HDF5 user blocks and zip
-    variants, and their refusal (UnsupportedFormat) names the file.
+    Once finished, ``sniff_format`` tells its container from its leading bytes; everything else
+    about the file is left to the readers in the background check.
     """
 
     def __init__(self, folder: Path, file_name: str, max_bytes: int):
@@ -102,3 +108,14 @@ class UploadSpool:
     def close(self) -> None:
         if not self._file.closed:
             self._file.close()
+
+
+def sniff_format(path: Path) -> str:
+    """The container of a received file from its leading bytes ("hdf5" or "npz").
+
+    Reads a few bytes only (the HDF5 signature may follow a user block), so it is safe on any
+    file; a file of neither kind raises the readers' UnsupportedFormat sentence (HTTP 415).
+    """
+    from actdoc.io import pick_reader
+
+    return pick_reader(Path(path)).name
