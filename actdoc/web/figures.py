@@ -243,7 +243,8 @@ def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
     widths = np.diff(placed)
     uneven = widths.size > 1 and widths.max() > 1.01 * widths.min()
     heights = counts / widths if uneven else counts
-    trace = {"type": "bar", "name": name, "x": (placed[:-1] + placed[1:]) / 2, "y": heights,
+    # Halves first: the sum of two edges near the largest float would overflow.
+    trace = {"type": "bar", "name": name, "x": placed[:-1] / 2 + placed[1:] / 2, "y": heights,
              "width": widths, "customdata": counts, "hovertext": bin_labels(edges, open_ends),
              "marker": {"color": colour},
              "hovertemplate": "%{hovertext}: %{customdata} observations<extra></extra>"}
@@ -311,7 +312,7 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
         marks = [-1.5 * reach, 1.5 * reach] if reach is not None else [edge]
         wide_low, wide_high = min(low, *marks), max(high, *marks)
         placed = axis.place([low, high, wide_low, wide_high])
-        data_share = (placed[1] - placed[0]) / max(placed[3] - placed[2], 1e-300)
+        data_share = (placed[1] / 2 - placed[0] / 2) / max(placed[3] / 2 - placed[2] / 2, 1e-300)
         if not follow_data or data_share >= DATA_SHARE_OF_VIEW:
             low, high = wide_low, wide_high  # both edges in view
     curve = curve_trace(info, low, high, axis)

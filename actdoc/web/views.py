@@ -6,7 +6,6 @@ Nothing here knows about Flask; the blueprints add links and choose HTML or JSON
 from __future__ import annotations
 
 import math
-from collections import Counter
 from typing import Any
 
 import numpy as np
@@ -27,6 +26,9 @@ from actdoc.web.unitmap import unit_map
 
 #: Findings listed on the model overview, most serious first.
 TOP_FINDINGS = 8
+#: Unit indices a page's JSON twin lists per finding (the count is always whole; the findings
+#: document, ``findings.json``, lists every unit).
+MAX_LISTED_UNITS = 1000
 #: Units per page of the unit table: default and ceiling.
 UNITS_PER_PAGE = 50
 MAX_UNITS_PER_PAGE = 500
@@ -62,6 +64,8 @@ def findings_for_page(findings: Findings, entries: list) -> list[dict[str, Any]]
     out = []
     for finding in entries:
         entry = finding_entry(finding)
+        entry["unit_count"] = len(entry["units"])
+        entry["units"] = entry["units"][:MAX_LISTED_UNITS]
         entry["layer_index"] = index.get(finding.layer)
         entry["look"] = looks.as_dict(finding.check)
         out.append(entry)
@@ -157,8 +161,9 @@ def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = Fal
             "finding_label": looks.label(finding) if finding else "",
             "next_order": {c: ("asc" if descending else "desc") if c == sort
                            else ("asc" if c in ("unit", "state") else "desc") for c in columns},
-            "states": dict(Counter(s or "none" for s in states.tolist())),
-            "state_labels": {s or "none": looks.label(s) for s in set(states.tolist())}}
+            "states": {(str(s) or "none"): int(n) for s, n in zip(*np.unique(states,
+                                                                         return_counts=True))},
+            "state_labels": {(str(s) or "none"): looks.label(str(s)) for s in np.unique(states)}}
 
 
 def weights_panel(report: LayerReport) -> dict[str, Any] | None:
@@ -218,7 +223,10 @@ def layer_detail(findings: Findings, report: LayerReport, finding: str | None = 
 
 def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) -> dict:
     """One unit: its own histograms read from the stored dump, weights, and findings."""
-    payload = unitcard.unit_detail(findings, dump, report, unit, findings_for_page)
+    # Values near the largest float overflow in sums and spans; those numbers become null
+    # (embed.plain) and the charts fall back to plain axes, so the warnings say nothing new.
+    with np.errstate(over="ignore", invalid="ignore"):
+        payload = unitcard.unit_detail(findings, dump, report, unit, findings_for_page)
     payload["layer"] = layer_summary(report)
     payload["explain"] = explain.explained(findings.settings)
     return payload
