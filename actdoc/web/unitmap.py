@@ -68,11 +68,14 @@ def spread_coinciding(x: np.ndarray, y: np.ndarray, rng: np.random.Generator
 
 
 def sample_units(states: np.ndarray, limit: int, rng: np.random.Generator) -> np.ndarray:
-    """At most ``limit`` unit indices: flagged units first (shared fairly among the states),
-    then a fixed sample of the units no check names."""
-    flagged_states = sorted(set(states[states != ""].tolist()))
+    """At most ``limit`` unit indices: flagged units first (shared fairly among the states, at
+    most three quarters of ``limit``), then a fixed sample of the units no check names."""
+    names, sizes = np.unique(states[states != ""], return_counts=True)
+    flagged_states = [str(name) for _size, name in sorted(zip(sizes, names))]  # small first
     picked: list[np.ndarray] = []
-    room = limit
+    calm = np.flatnonzero(states == "")
+    # A quarter of the points stay for the units no check names, where there are any.
+    room = limit - min(calm.size, limit // 4) if flagged_states else limit
     for position, state in enumerate(flagged_states):
         members = np.flatnonzero(states == state)
         share = room // (len(flagged_states) - position)
@@ -80,7 +83,7 @@ def sample_units(states: np.ndarray, limit: int, rng: np.random.Generator) -> np
             rng.choice(members, share, replace=False))
         picked.append(take)
         room -= take.size
-    calm = np.flatnonzero(states == "")
+    room = limit - sum(part.size for part in picked)
     if room > 0 and calm.size:
         picked.append(calm if calm.size <= room else np.sort(rng.choice(calm, room,
                                                                           replace=False)))
