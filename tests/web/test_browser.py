@@ -150,12 +150,12 @@ def test_demo_shelf_drift_page_and_the_readme_survey(browser, demo_url):
     page.check('input[aria-label="compare relu_dying_step1.h5"]')
     page.check('input[aria-label="compare relu_dying_step5.h5"]')
     button.click()
-    page.wait_for_url("**/drift?*")
+    page.wait_for_url("**/compare?*")
     assert page.locator("table.drift thead th.num").count() == 2
 
     page.goto(demo_url + "/")
     page.click("text=compare the demo checkpoints")
-    page.wait_for_url("**/drift?*")
+    page.wait_for_url("**/compare?*")
     assert "hidden2" in chart_title(page, "layer-1")
     labels = page.locator("table.drift thead th.num").all_text_contents()
     assert labels == ["step1", "step2", "step3", "step4", "step5"]

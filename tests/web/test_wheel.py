@@ -27,3 +27,4 @@ def test_wheel_holds_templates_and_static_files(tmp_path):
     for name in static:
         assert f"actdoc/static/{name}" in names
     assert "actdoc/web/app.py" in names and "actdoc/workspace.py" in names
+    assert "actdoc/docs/checks.md" in names  # shown by the /help/checks page
