@@ -1,7 +1,8 @@
 """The page content in a real headless Chromium at 1440 and 390 px: unit cards, the roster of
 one finding, the Survey, the Shelf's live search and sort, Compare, the checks help page, a
 200,000-unit layer and a dump whose names carry markup. Screenshots land in tests/artifacts/
-as pages-<name>-<width>.png for a person to look at.
+as pages-<name>-<width>.png for a person to look at. The ``browser`` fixture (one Chromium per
+session) is in tests/web/conftest.py.
 
 References: the demo scenario (docs/demo.md): relu_dying_step5.h5's second layer has 33 dead
 units; logistic_deep_old_init.h5's top layer saturates at the low side (z near -10.5).
@@ -10,8 +11,6 @@ units; logistic_deep_old_init.h5's top layer saturates at the low side (z near -
 from __future__ import annotations
 
 import json
-import os
-import shutil
 import threading
 from pathlib import Path
 
@@ -26,24 +25,6 @@ pytestmark = pytest.mark.browser
 
 ARTIFACTS = Path(__file__).resolve().parents[2] / "tests" / "artifacts"
 WIDTHS = (1440, 390)
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-                 "--no-first-run", "--disable-background-networking",
-                 "--disable-component-update", "--disable-sync"]
-
-
-@pytest.fixture(scope="module")
-def browser():
-    executable = shutil.which("chromium")
-    if executable is None:
-        if os.environ.get("CI"):
-            pytest.fail("browser tests need chromium in CI")
-        pytest.skip("no 'chromium' on PATH (Debian: apt-get install chromium)")
-    from playwright.sync_api import sync_playwright
-
-    with sync_playwright() as playwright:
-        launched = playwright.chromium.launch(executable_path=executable, args=CHROMIUM_ARGS)
-        yield launched
-        launched.close()
 
 
 def hostile_npz(folder: Path) -> Path:
