@@ -23,8 +23,8 @@ MAX_POINTS = 4000
 DENSITY_BINS = (48, 32)
 #: Coinciding points are spread over a disc of this share of the axis spans times the square
 #: root of how many share the place (so the disc's area grows with them), at most SPREAD_MAX.
-SPREAD = 0.008
-SPREAD_MAX = 0.06
+SPREAD = 0.012
+SPREAD_MAX = 0.08
 SEED = 20240611
 
 #: Unit map axes per kind: (x column, x label, y column, y label).
@@ -45,8 +45,8 @@ def axes_for(kind: ActivationKind) -> tuple[str, str, str, str]:
 def spread_coinciding(x: np.ndarray, y: np.ndarray, rng: np.random.Generator
                       ) -> tuple[np.ndarray, np.ndarray]:
     """Positions to draw: points that share their exact (x, y) with others are moved within a
-    disc around it (SPREAD times each axis' span times the square root of how many share it);
-    the others stay where they are."""
+    disc around it (SPREAD times each axis' span times the square root of how many share it),
+    inwards only at the edges of the data; the others stay where they are."""
     shown_x, shown_y = x.astype(float).copy(), y.astype(float).copy()
     finite = np.isfinite(x) & np.isfinite(y)
     if finite.sum() < 2:
@@ -62,8 +62,15 @@ def spread_coinciding(x: np.ndarray, y: np.ndarray, rng: np.random.Generator
     span_y = float(np.ptp(y[finite])) or max(abs(float(y[finite][0])), 1.0)
     angle = rng.uniform(0, 2 * np.pi, crowded.size)
     radius = np.sqrt(rng.uniform(0, 1, crowded.size))
-    shown_x[crowded] += reach * span_x * radius * np.cos(angle)
-    shown_y[crowded] += reach * span_y * radius * np.sin(angle)
+    dx = reach * span_x * radius * np.cos(angle)
+    dy = reach * span_y * radius * np.sin(angle)
+    # A pile at the edge of the data (every dead unit at active share 0) spreads inwards only,
+    # so no drawn point shows a value the measure cannot take.
+    for base, step, values in ((x[crowded], dx, x[finite]), (y[crowded], dy, y[finite])):
+        step[base <= values.min()] = np.abs(step[base <= values.min()])
+        step[base >= values.max()] = -np.abs(step[base >= values.max()])
+    shown_x[crowded] += dx
+    shown_y[crowded] += dy
     return shown_x, shown_y
 
 
