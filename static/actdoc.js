@@ -14,8 +14,10 @@
       if (el.dataset.unitUrl) {
         el.on("plotly_click", function (event) {
           var point = event.points && event.points[0];
-          if (point && point.customdata !== undefined) {
-            window.location.href = el.dataset.unitUrl + point.customdata;
+          if (point && point.customdata !== undefined && point.customdata !== null) {
+            /* the unit map carries [unit, x, y]; the norm bars the unit alone */
+            var unit = Array.isArray(point.customdata) ? point.customdata[0] : point.customdata;
+            window.location.href = el.dataset.unitUrl + unit;
           }
         });
       }
@@ -120,7 +122,66 @@
     update();
   }
 
+  /* The Shelf's search, filter and sort, live in the browser. Without script the same form
+     asks the server (?q=&show=&sort=), which answers with the list already arranged. */
+  function wireShelfTools() {
+    var form = document.getElementById("shelf-tools");
+    var body = document.getElementById("shelf-rows");
+    if (!form || !body) return;
+    var search = document.getElementById("shelf-search");
+    var show = document.getElementById("shelf-show");
+    var sort = document.getElementById("shelf-sort");
+    var count = document.getElementById("shelf-count");
+    var none = document.getElementById("shelf-none");
+    var apply = document.getElementById("shelf-apply");
+    var rows = Array.prototype.slice.call(body.rows);
+    var total = Number(form.dataset.total);
+    if (rows.length < total) {
+      /* the server already narrowed this list: ask it again rather than lose rows */
+      [show, sort].forEach(function (box) {
+        box.addEventListener("change", function () { form.submit(); });
+      });
+      return;
+    }
+    var names = new Intl.Collator(undefined, { numeric: true, sensitivity: "base" });
+    var orders = {
+      name: function (a, b) { return names.compare(a.dataset.name, b.dataset.name); },
+      newest: function (a, b) { return b.dataset.created.localeCompare(a.dataset.created); },
+      oldest: function (a, b) { return a.dataset.created.localeCompare(b.dataset.created); },
+      worst: function (a, b) {
+        return (b.dataset.critical - a.dataset.critical) || (b.dataset.warning - a.dataset.warning)
+          || names.compare(a.dataset.name, b.dataset.name);
+      },
+      size: function (a, b) { return b.dataset.size - a.dataset.size; }
+    };
+    if (apply) apply.hidden = true;
+    function update() {
+      var words = search.value.toLowerCase().split(/\s+/).filter(Boolean);
+      var shown = 0;
+      rows.slice().sort(orders[sort.value] || orders.name).forEach(function (row) {
+        var hit = words.every(function (word) { return row.dataset.search.indexOf(word) >= 0; })
+          && (show.value === "all" || row.dataset.show === show.value);
+        row.hidden = !hit;
+        if (hit) shown += 1;
+        body.appendChild(row);
+      });
+      count.textContent = shown + " of " + total + " dump" + (total === 1 ? "" : "s") + " shown";
+      if (none) none.hidden = shown > 0;
+      var query = new URLSearchParams();
+      if (search.value) query.set("q", search.value);
+      if (show.value !== "all") query.set("show", show.value);
+      if (sort.value !== "name") query.set("sort", sort.value);
+      var text = query.toString();
+      window.history.replaceState(null, "", window.location.pathname + (text ? "?" + text : ""));
+    }
+    form.addEventListener("submit", function (event) { event.preventDefault(); update(); });
+    search.addEventListener("input", update);
+    show.addEventListener("change", update);
+    sort.addEventListener("change", update);
+  }
+
   document.addEventListener("DOMContentLoaded", function () {
+    wireShelfTools();
     wireConfirms();
     wireDriftPicker();
     drawCharts();

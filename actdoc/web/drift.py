@@ -1,4 +1,5 @@
-"""The Drift page: several dumps of one model side by side, as plain data for HTML and JSON.
+"""The Compare page (``actdoc compare`` in the browser): several dumps of one model side by
+side, as plain data for HTML and JSON.
 
 The comparison itself lives in the core (``actdoc.compare``); this module picks the dumps,
 orders them, gives them short labels and draws one chart per layer. Nothing here knows Flask.
@@ -12,7 +13,9 @@ from typing import Any, Sequence
 from actdoc.compare import Comparison, LayerTrack, compare_series, comparison_document
 from actdoc.io.base import natural_key
 from actdoc.model import CAVEAT, Findings
-from actdoc.web import figures
+from actdoc.web import figures, looks
+from actdoc.web.text import chart_text
+from actdoc.web.ticks import percent_axis
 from actdoc.workspace import DumpRecord
 
 #: A comparison draws at most this many dumps (each one's findings are loaded for the page).
@@ -67,18 +70,23 @@ def shares_figure(track: LayerTrack, labels: Sequence[str]) -> dict[str, Any] | 
     if not flagged:
         return None
     traces = [{
-        "type": "scatter", "mode": "lines+markers", "name": check.replace("_", " "),
-        "x": list(labels), "y": list(track.shares[check]),
+        "type": "scatter", "mode": "lines+markers", "name": looks.label(check),
+        "x": [chart_text(label) for label in labels], "y": list(track.shares[check]),
         "customdata": list(track.counts[check]),
-        "line": {"color": figures.CHECK_COLOURS.get(check, figures.MUTED), "width": 2},
-        "hovertemplate": "%{x}: %{y:.1%} (%{customdata} units) " + check + "<extra></extra>",
+        "line": {"color": looks.colour(check), "width": 2},
+        "marker": {"symbol": looks.look(check).symbol, "size": 8},
+        "hovertemplate": "%{x}: %{y:.1%} (%{customdata} units) " + looks.label(check)
+                         + "<extra></extra>",
     } for check in flagged]
-    top = max(max(track.shares[check]) for check in flagged)
+    top = max((share for check in flagged for share in track.shares[check]
+               if share is not None), default=0.0)
+    title = f"{track.name} · {track.kind} · {track.units} units"
+    if len(traces) == 1:
+        title += f" · {traces[0]['name']}"
     return {"data": traces, "layout": figures.base_layout(
-        f"{track.name} · {track.kind} · {track.units} units",
+        title, showlegend=len(traces) > 1,
         xaxis={"type": "category", "title": {"text": "dump"}},
-        yaxis={"tickformat": ".0%", "range": [0, max(0.1, min(1.0, top * 1.15))],
-               "title": {"text": "share of units"}})}
+        yaxis=percent_axis(max(top, 0.01)))}
 
 
 def step_entries(comparison: Comparison, series: Sequence[Findings],
@@ -112,6 +120,7 @@ def drift(records: Sequence[DumpRecord], series: Sequence[Findings]) -> dict[str
             "rows": [{"check": check, "shares": list(track.shares[check]),
                       "counts": list(track.counts[check])} for check in track.ever_flagged],
             "quiet_checks": quiet,
+            "quiet_labels": [looks.label(check) for check in quiet],
             "figure": shares_figure(track, labels),
         })
     return {

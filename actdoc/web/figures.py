@@ -11,8 +11,12 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from actdoc.analysis.defaults import ROWS
-from actdoc.model import ActivationKind, Findings, LayerInfo, LayerReport
+from actdoc.model import ActivationKind, Findings, LayerInfo
 from actdoc.neurons import Neuron
+from actdoc.web import looks
+from actdoc.web.binning import safe_histogram
+from actdoc.web.text import chart_text
+from actdoc.web.ticks import log_axis, percent_axis
 from actdoc.web.zaxis import AsinhAxis, PlainAxis
 
 INK = "#24303f"
@@ -21,24 +25,17 @@ GRID = "#e6e9ee"
 ACCENT = "#1d6f6a"
 SATURATED_FILL = "rgba(201, 122, 28, 0.14)"
 LINEAR_FILL = "rgba(59, 102, 196, 0.12)"
-
-#: Colour of each unit state (the exclusive unit checks); "" is a unit no check names.
-STATE_COLOURS = {
-    "": "#5f9e8f", "dead": "#b3372f", "dormant": "#d9772b", "saturated": "#c99a1c",
-    "near_binary": "#7a4fb3", "linear_regime": "#3b66c4", "constant": "#8a8f98",
-    "non_finite": "#111111",
-}
-CHECK_COLOURS = {**STATE_COLOURS, "init_scale": "#2f8f5b", "vanishing_signal": "#4b5563",
-                 "exploding_signal": "#9f1239"}
+SILENT_FILL = "rgba(120, 128, 140, 0.12)"
 
 #: Settings that place the zones on the transfer curve (defaults from the analysis table).
 ZONE_SETTINGS = ("logistic_saturation_margin", "tanh_saturation_level", "linear_gain_share")
 
 
 def base_layout(title: str, **extra: Any) -> dict[str, Any]:
-    """The calm shared look: light grid, system font, room for a title."""
+    """The calm shared look: light grid, system font, room for a title (shown as text: names
+    in it cannot become plotly markup)."""
     layout = {
-        "title": {"text": title, "x": 0.01, "font": {"size": 15, "color": INK}},
+        "title": {"text": chart_text(title), "x": 0.01, "font": {"size": 15, "color": INK}},
         "font": {"family": "system-ui, -apple-system, Segoe UI, sans-serif", "size": 12,
                  "color": INK},
         "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#ffffff",
@@ -57,26 +54,33 @@ def base_layout(title: str, **extra: Any) -> dict[str, Any]:
     return layout
 
 
-def depth_fractions(findings: Findings, checks: Sequence[str]) -> dict[str, Any]:
-    """Share of each layer's units in each check, across depth."""
-    names = [report.name for report in findings.layers]
+def depth_fractions(findings: Findings, checks: Sequence[str]) -> dict[str, Any] | None:
+    """Share of each layer's units in each check, across depth; None when no check names a
+    unit anywhere (the page says so in a sentence instead of an empty chart)."""
+    names = [chart_text(report.name) for report in findings.layers]
     traces = []
     for check in checks:
         shares = [report.fractions.get(check) for report in findings.layers]
         if not any(share for share in shares if share is not None):
             continue
-        traces.append({"type": "bar", "name": check.replace("_", " "), "x": names, "y": shares,
-                       "marker": {"color": CHECK_COLOURS.get(check, MUTED)},
-                       "hovertemplate": "%{x}: %{y:.1%} " + check + "<extra></extra>"})
+        face = looks.look(check)
+        traces.append({"type": "bar", "name": face.label, "x": names, "y": shares,
+                       "marker": {"color": face.colour},
+                       "hovertemplate": "%{x}: %{y:.1%} " + face.label + "<extra></extra>"})
+    if not traces:
+        return None
+    top = max(share for trace in traces for share in trace["y"] if share is not None)
+    title = "Share of units in each check, by depth"
+    if len(traces) == 1:
+        title = f"Share of units {traces[0]['name']}, by depth"
     return {"data": traces, "layout": base_layout(
-        "Share of units in each check, by depth", barmode="group",
-        yaxis={"tickformat": ".0%", "rangemode": "tozero", "title": {"text": "share of units"}},
-        xaxis={"type": "category"})}
+        title, barmode="group", showlegend=len(traces) > 1,
+        yaxis=percent_axis(top), xaxis={"type": "category", "title": {"text": "layer"}})}
 
 
-def depth_signal(findings: Findings) -> dict[str, Any]:
+def depth_signal(findings: Findings) -> dict[str, Any] | None:
     """Output scale and gradient gain across depth (log scale: both are ratios of size)."""
-    names = [report.name for report in findings.layers]
+    names = [chart_text(report.name) for report in findings.layers]
     traces = []
     for field, label, colour in (("output_scale", "output scale", ACCENT),
                                  ("gradient_gain", "gradient gain", "#b35c2e")):
@@ -85,10 +89,17 @@ def depth_signal(findings: Findings) -> dict[str, Any]:
             continue
         traces.append({"type": "scatter", "mode": "lines+markers", "name": label,
                        "x": names, "y": [v if v is not None and v > 0 else None for v in values],
-                       "line": {"color": colour, "width": 2}})
+                       "line": {"color": colour, "width": 2},
+                       "hovertemplate": "%{x}: %{y:.3g} " + label + "<extra></extra>"})
+    if not traces:
+        return None
+    title = "Output scale and gradient gain, by depth"
+    if len(traces) == 1:
+        title = f"{traces[0]['name'].capitalize()}, by depth"
     return {"data": traces, "layout": base_layout(
-        "Output scale and gradient gain, by depth",
-        yaxis={"type": "log", "title": {"text": "size (log)"}}, xaxis={"type": "category"})}
+        title, showlegend=len(traces) > 1,
+        yaxis=log_axis([v for trace in traces for v in trace["y"]], "size (log scale)"),
+        xaxis={"type": "category", "title": {"text": "layer"}})}
 
 
 #: Inputs reaching past this many times the saturation edge get an asinh z axis: on a plain
@@ -141,7 +152,48 @@ def zone_shapes(info: LayerInfo, settings: Mapping[str, float],
         low, high = axis.place([linear.z_low, linear.z_high])
         shapes.append({**band, "x0": low, "x1": high, "fillcolor": LINEAR_FILL,
                        "showlegend": True, "name": "near-linear"})
+    edge = silent_edge(info)
+    if edge is not None:
+        at, far = axis.place([edge, 1e6])
+        shapes.append({**band, "x0": -far, "x1": at, "fillcolor": SILENT_FILL,
+                       "showlegend": True, "name": "silent (no output)"})
     return shapes
+
+
+def silent_edge(info: LayerInfo) -> float | None:
+    """Where a relu or threshold unit falls silent: output 0 (and no gradient) at or below
+    this z. None for kinds without a silent side (leaky relu keeps a small slope)."""
+    if info.kind is ActivationKind.RELU:
+        return 0.0
+    if info.kind is ActivationKind.THRESHOLD:
+        return float(info.threshold or 0.0)
+    return None
+
+
+def zone_note(info: LayerInfo, settings: Mapping[str, float]) -> str:
+    """What the shading on a total-input chart of this kind means, in words."""
+    values = zone_settings(settings)
+    neuron = Neuron(info.kind, info.negative_slope, info.threshold)
+    parts = []
+    saturation = neuron.saturation_zone(values["logistic_saturation_margin"],
+                                        values["tanh_saturation_level"])
+    if saturation is not None:
+        parts.append(f"saturated zone (z below {saturation.z_low:.3g} or above "
+                     f"{saturation.z_high:.3g}: the output hardly moves and passes almost no "
+                     "gradient)")
+    linear = neuron.linear_zone(values["linear_gain_share"])
+    if linear is not None:
+        parts.append(f"near-linear zone (z from {linear.z_low:.3g} to {linear.z_high:.3g}: "
+                     f"the slope is at least {values['linear_gain_share']:.0%} of its "
+                     "largest, so the unit acts almost like a linear one)")
+    edge = silent_edge(info)
+    if edge is not None:
+        parts.append(f"silent side (z at or below {edge:.3g}: output 0 and no gradient)")
+    line = "The line is the transfer function f(z) on the right axis."
+    if not parts:
+        return f"No zone is shaded: a {info.kind.value} unit neither saturates nor falls " \
+               f"silent. {line}"
+    return "Shaded: " + "; ".join(parts) + ". " + line
 
 
 def curve_trace(info: LayerInfo, low: float, high: float,
@@ -191,7 +243,8 @@ def histogram_bars(edges: np.ndarray, counts: np.ndarray, name: str,
     widths = np.diff(placed)
     uneven = widths.size > 1 and widths.max() > 1.01 * widths.min()
     heights = counts / widths if uneven else counts
-    trace = {"type": "bar", "name": name, "x": (placed[:-1] + placed[1:]) / 2, "y": heights,
+    # Halves first: the sum of two edges near the largest float would overflow.
+    trace = {"type": "bar", "name": name, "x": placed[:-1] / 2 + placed[1:] / 2, "y": heights,
              "width": widths, "customdata": counts, "hovertext": bin_labels(edges, open_ends),
              "marker": {"color": colour},
              "hovertemplate": "%{hovertext}: %{customdata} observations<extra></extra>"}
@@ -212,7 +265,7 @@ def count_axis(heights: np.ndarray, label: str, broad: bool = False) -> dict[str
     tallest = np.sort(filled)[-2:]
     spike = filled.size > 2 and tallest[1] > SPIKE_RATIO * tallest[0]
     if spike or (broad and filled.size > 2 and tallest[1] > SPIKE_RATIO * np.median(filled)):
-        return {"type": "log", "title": {"text": f"{label} (log scale)"}}
+        return log_axis(filled, f"{label} (log scale)")
     return {"title": {"text": label}}
 
 
@@ -226,28 +279,42 @@ def histogram_figure(edges: np.ndarray, counts: np.ndarray, title: str, x_label:
         yaxis=count_axis(trace["y"], y_label or bars_label))}
 
 
+#: On a unit card the view keeps both saturation edges only while the unit's own inputs fill at
+#: least this share of it; otherwise it follows the inputs (the curve is drawn over them).
+DATA_SHARE_OF_VIEW = 0.25
+
+
 def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
                        settings: Mapping[str, float], title: str,
                        band: Sequence[float] | None = None,
-                       open_ends: bool = False) -> dict[str, Any]:
+                       open_ends: bool = False, follow_data: bool = False,
+                       axis: PlainAxis | AsinhAxis | None = None) -> dict[str, Any]:
     """Histogram of total inputs with f(z) drawn over it and the zones shaded.
 
     The view spans the inputs and, for saturating kinds, both saturation edges, so a reader
     sees where the inputs sit against them; inputs far past the edges get an asinh z axis
-    (``input_axis``). ``band`` (low, high) marks a range of z, e.g. the middle 90% of one
-    unit's inputs.
+    (``input_axis``). With ``follow_data`` (one unit's inputs, often a narrow clump deep in
+    one zone) the edges join the view only while the inputs keep DATA_SHARE_OF_VIEW of it.
+    ``band`` (low, high) marks a range of z, e.g. the middle 90% of one unit's inputs.
+    ``axis``: the axis the bins were made for, where the caller chose it.
     """
     edges = np.asarray(edges, dtype=float)
     low, high = occupied_range(edges, counts)
-    axis = input_axis(info, settings, low, high)
+    axis = axis or input_axis(info, settings, low, high)
     bars, y_label = histogram_bars(edges, counts, "total inputs", axis=axis,
                                    open_ends=open_ends)
     bars["showlegend"] = False  # the y axis title says what the bars are
     traces = [bars]
     shapes = zone_shapes(info, settings, axis)
     reach = saturation_reach(info, settings)
-    if reach is not None:
-        low, high = min(low, -1.5 * reach), max(high, 1.5 * reach)  # both edges in view
+    edge = silent_edge(info)
+    if reach is not None or edge is not None:
+        marks = [-1.5 * reach, 1.5 * reach] if reach is not None else [edge]
+        wide_low, wide_high = min(low, *marks), max(high, *marks)
+        placed = axis.place([low, high, wide_low, wide_high])
+        data_share = (placed[1] / 2 - placed[0] / 2) / max(placed[3] / 2 - placed[2] / 2, 1e-300)
+        if not follow_data or data_share >= DATA_SHARE_OF_VIEW:
+            low, high = wide_low, wide_high  # both edges in view
     curve = curve_trace(info, low, high, axis)
     # tickmode "auto": plotly.js would otherwise sync these ticks to the left axis' grid,
     # which lands them on values like 1.67 and 3.87.
@@ -256,7 +323,7 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
     if curve is not None:
         traces.append(curve)
         y_low, y_high = float(np.min(curve["y"])), float(np.max(curve["y"]))
-        pad = 0.05 * ((y_high - y_low) or 1.0)
+        pad = 0.05 * ((y_high - y_low) or max(abs(y_low), 1.0))
         curve_axis["range"] = [y_low - pad, y_high + pad]
     if band is not None and np.isfinite(band).all():
         x0, x1 = axis.place(band)
@@ -271,47 +338,23 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
         yaxis2=curve_axis)}
 
 
-#: Unit map axes per kind: (x column, x label, y column, y label).
-UNIT_MAP_AXES = {
-    "rectified": ("active_fraction", "share of inputs where the unit is active",
-                  "std", "spread of the output (std)"),
-    "other": ("mean", "mean output", "std", "spread of the output (std)"),
-}
-
-
-def unit_map_axes(kind: ActivationKind) -> tuple[str, str, str, str]:
-    if kind in (ActivationKind.RELU, ActivationKind.LEAKY_RELU, ActivationKind.THRESHOLD,
-                ActivationKind.STOCHASTIC_BINARY):
-        return UNIT_MAP_AXES["rectified"]
-    return UNIT_MAP_AXES["other"]
-
-
-def unit_map(report: LayerReport) -> dict[str, Any] | None:
-    """Every unit as a point, coloured by state; a click opens the unit page (customdata)."""
-    x_col, x_label, y_col, y_label = unit_map_axes(report.info.kind)
-    table = report.unit_table
-    if x_col not in table or y_col not in table:
-        return None
-    states = np.asarray(table.get("state", np.full(report.info.units, "")), dtype=str)
-    traces = []
-    for state in sorted(set(states.tolist()), key=lambda s: (s != "", s)):
-        picked = np.flatnonzero(states == state)
-        traces.append({
-            "type": "scatter", "mode": "markers", "name": state or "no finding",
-            "x": np.asarray(table[x_col])[picked], "y": np.asarray(table[y_col])[picked],
-            "customdata": picked,
-            "marker": {"color": STATE_COLOURS.get(state, MUTED), "size": 7, "opacity": 0.8},
-            "hovertemplate": "unit %{customdata}<br>" + x_col + " %{x:.3g}<br>" + y_col
-                             + " %{y:.3g}<extra>" + (state or "no finding") + "</extra>"})
-    return {"data": traces, "layout": base_layout(
-        "Unit map (click a unit to open it)",
-        xaxis={"title": {"text": x_label}}, yaxis={"title": {"text": y_label}})}
+#: One bar per unit up to this many units; past it the norms are drawn as a histogram.
+MAX_UNIT_BARS = 2000
 
 
 def per_unit_bars(values: np.ndarray, title: str, y_label: str,
-                  reference: float | None = None) -> dict[str, Any]:
-    """One bar per unit (incoming weight norms), with an optional reference line."""
+                  reference: float | None = None) -> dict[str, Any] | None:
+    """One bar per unit (incoming weight norms), with an optional reference line; for a wide
+    layer a histogram of the values with the reference as a vertical line instead."""
     values = np.asarray(values, dtype=float)
+    if values.size > MAX_UNIT_BARS:
+        figure = value_histogram(values, f"{title} ({values.size:,} units)", y_label,
+                                 bins=60, y_label="units")
+        if figure is not None and reference is not None and np.isfinite(reference):
+            figure["layout"]["shapes"] = [{
+                "type": "line", "yref": "paper", "y0": 0, "y1": 1, "x0": reference,
+                "x1": reference, "line": {"color": "#b35c2e", "dash": "dash"}}]
+        return figure
     shapes = []
     if reference is not None and np.isfinite(reference):
         shapes.append({"type": "line", "xref": "paper", "x0": 0, "x1": 1, "y0": reference,
@@ -319,17 +362,17 @@ def per_unit_bars(values: np.ndarray, title: str, y_label: str,
     return {"data": [{"type": "bar", "x": np.arange(values.size), "y": values,
                       "customdata": np.arange(values.size), "marker": {"color": "#7fb2a8"},
                       "hovertemplate": "unit %{x}: %{y:.3g}<extra></extra>"}],
-            "layout": base_layout(title, shapes=shapes, bargap=0.05,
+            "layout": base_layout(title, shapes=shapes, bargap=0.05, showlegend=False,
                                   xaxis={"title": {"text": "unit"}},
                                   yaxis={"title": {"text": y_label}})}
 
 
 def value_histogram(values: np.ndarray, title: str, x_label: str,
-                    bins: int = 40) -> dict[str, Any] | None:
+                    bins: int = 40, y_label: str = "count") -> dict[str, Any] | None:
     """Histogram of a small array (biases, one unit's incoming weights)."""
     values = np.asarray(values, dtype=float)
     values = values[np.isfinite(values)]
     if values.size == 0:
         return None
-    counts, edges = np.histogram(values, bins=bins)
-    return histogram_figure(edges, counts, title, x_label, y_label="count")
+    edges, counts = safe_histogram(values, bins)
+    return histogram_figure(edges, counts, title, x_label, y_label=y_label)

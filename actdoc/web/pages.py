@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
-from flask import Blueprint, jsonify, redirect, render_template, request, url_for
+from flask import (Blueprint, jsonify, make_response, redirect, render_template, request,
+                   url_for)
 from werkzeug.exceptions import BadRequest, NotFound
 
+import actdoc
 from actdoc.model import CAVEAT, LayerReport
 from actdoc.web import drift as drift_view
-from actdoc.web import views
+from actdoc.web import explain, looks, markdown, shelf, text, views
 from actdoc.web.api import dump_object, receive_upload, state
 from actdoc.formatting import plain
 
@@ -49,9 +52,9 @@ def check_unit(report: LayerReport, unit: int) -> None:
 
 @blueprint.get("/")
 def home():
-    records = state().workspace.list()
+    """The Shelf: ``?q=`` words to search, ``sort=`` and ``show=`` (see web/shelf.py)."""
     dumps = []
-    for record in records:
+    for record in state().workspace.list():
         entry = dump_object(record)
         if record.id in state().demo_files:
             demo, position = state().demo_files[record.id]
@@ -59,8 +62,10 @@ def home():
                              "description": demo.description, "checkpoint": position + 1,
                              "checkpoints": len(demo.files)}
         dumps.append(entry)
-    return respond("home.html", {"dumps": dumps, "demo": state().demo,
-                                 "demo_series": demo_series_links()})
+    payload = shelf.arranged(dumps, request.args.get("q", ""),
+                             request.args.get("sort", "name"), request.args.get("show", "all"))
+    payload.update(demo=state().demo, demo_series=demo_series_links())
+    return respond("home.html", payload)
 
 
 def demo_series_links() -> list[dict[str, str]]:
@@ -71,14 +76,16 @@ def demo_series_links() -> list[dict[str, str]]:
         if len(demo.files) > 1:
             series.setdefault(demo.name, []).append((position, dump_id))
             titles[demo.name] = demo.title
-    return [{"title": titles[name], "url": url_for("pages.drift",
+    return [{"title": titles[name], "url": url_for("pages.compare",
                                                     dump=[i for _p, i in sorted(picked)])}
             for name, picked in series.items()]
 
 
-@blueprint.get("/drift")
-def drift():
-    """Several ready dumps of one model side by side (``?dump=ID&dump=ID...``)."""
+@blueprint.get("/drift")  # registered second: url_for builds /compare
+@blueprint.get("/compare")
+def compare():
+    """Compare: several ready dumps of one model side by side (``?dump=ID&dump=ID...``).
+    ``/drift`` is the page's earlier address, kept so old links still work."""
     workspace = state().workspace
     try:
         ids = drift_view.picked_ids(request.args.getlist("dump"))
@@ -89,7 +96,7 @@ def drift():
     payload = drift_view.drift(records, series)
     payload["dumps"] = [{**dump_object(record), "label": label}
                         for record, label in zip(records, payload["labels"])]
-    return respond("drift.html", payload)
+    return respond("compare.html", payload)
 
 
 @blueprint.post("/upload")
@@ -122,7 +129,7 @@ def layer(dump_id: str, index: int):
         findings, report, sort=request.args.get("sort", "unit"),
         descending=request.args.get("order") == "desc", page=int_arg("page", 1),
         per_page=int_arg("per_page", views.UNITS_PER_PAGE),
-        state=request.args.get("state") or None)
+        state=request.args.get("state") or None, finding=request.args.get("finding") or None)
     payload["dump"] = dump_object(record)
     payload["layer_count"] = len(findings.layers)
     # The unit map and norm chart append a clicked unit's index to this address.
@@ -140,3 +147,65 @@ def unit(dump_id: str, index: int, unit: int):
         payload = views.unit_detail(findings, dump, report, unit)
     payload["dump"] = dump_object(record)
     return respond("unit.html", payload)
+
+
+def checks_document() -> str | None:
+    """docs/checks.md: packed beside the package in a wheel, at the repository root when
+    editable; None when neither holds it."""
+    package = Path(actdoc.__file__).resolve().parent
+    for candidate in (package / "docs" / "checks.md", package.parent / "docs" / "checks.md"):
+        if candidate.is_file():
+            return candidate.read_text(encoding="utf-8")
+    return None
+
+
+@blueprint.get("/help/checks")
+def help_checks():
+    """How the checks work: docs/checks.md, the measures in plain words, every threshold."""
+    from actdoc.analysis.checks import all_checks
+
+    text = checks_document()
+    payload = {
+        "document": text,
+        "explain": explain.explained({}),
+        "checks": [{"id": check.name, "scope": check.scope, "look": looks.as_dict(check.name),
+                    "cause": check.cause, "remedy": check.remedy}
+                   for check in all_checks()],
+    }
+    if request.args.get("format") == "json":
+        return jsonify(plain(payload))
+    return render_template("help_checks.html", html=markdown.render(text or ""), **payload)
+
+
+@blueprint.get("/looks.css")
+def looks_css():
+    """A class per check (``look-<id>``) in that check's colour, from the one table in
+    web/looks.py; checks it does not list get their fallback look."""
+    from actdoc.analysis.checks import all_checks
+
+    ids = sorted({check.name for check in all_checks()} | set(looks.LOOKS) | {""})
+    rules = []
+    for check in ids:
+        face = looks.look(check)
+        rules.append(f".look-{looks.css_name(check)} {{ --look: {face.colour}; }}")
+    response = make_response("\n".join(rules) + "\n")
+    response.mimetype = "text/css"
+    response.cache_control.max_age = 300
+    return response
+
+
+@blueprint.app_template_filter("look_class")
+def look_class(check: str | None) -> str:
+    return looks.css_name(check)
+
+
+@blueprint.record_once
+def show_controls_visibly(setup) -> None:
+    """Every string a page prints shows control characters (ANSI/OSC escapes, newlines,
+    bidirectional overrides) as visible stand-ins: names come from untrusted files."""
+    setup.app.jinja_env.finalize = text.finalize
+
+
+@blueprint.app_template_global("row_look")
+def row_look(check: str | None) -> dict:
+    return looks.as_dict(check)

@@ -6,7 +6,6 @@ Nothing here knows about Flask; the blueprints add links and choose HTML or JSON
 from __future__ import annotations
 
 import math
-from collections import Counter
 from typing import Any
 
 import numpy as np
@@ -21,18 +20,18 @@ from actdoc.model import (
     LayerReport,
 )
 from actdoc.reports.document import finding_entry, layer_entry, ordered_findings, verdict
-from actdoc.web import figures
 from actdoc.formatting import plain
+from actdoc.web import explain, figures, looks, unitcard
+from actdoc.web.unitmap import unit_map
 
 #: Findings listed on the model overview, most serious first.
 TOP_FINDINGS = 8
+#: Unit indices a page's JSON twin lists per finding (the count is always whole; the findings
+#: document, ``findings.json``, lists every unit).
+MAX_LISTED_UNITS = 1000
 #: Units per page of the unit table: default and ceiling.
 UNITS_PER_PAGE = 50
 MAX_UNITS_PER_PAGE = 500
-#: Bins of the histograms drawn from one unit's values.
-UNIT_BINS = 60
-#: Incoming weights listed in a unit's JSON (the histogram always uses all of them).
-MAX_LISTED_WEIGHTS = 4096
 #: Shown where a layer's dump entry holds only parameters: nothing about its units was measured.
 WEIGHTS_ONLY_NOTE = ("The dump holds no recorded total inputs or outputs for this layer, only "
                      "its parameters: its units were not measured on the probe batch, so only "
@@ -65,7 +64,10 @@ def findings_for_page(findings: Findings, entries: list) -> list[dict[str, Any]]
     out = []
     for finding in entries:
         entry = finding_entry(finding)
+        entry["unit_count"] = len(entry["units"])
+        entry["units"] = entry["units"][:MAX_LISTED_UNITS]
         entry["layer_index"] = index.get(finding.layer)
+        entry["look"] = looks.as_dict(finding.check)
         out.append(entry)
     return out
 
@@ -82,6 +84,8 @@ def overview(findings: Findings) -> dict[str, Any]:
     """The model overview: layers in forward order, the charts across depth, the top findings."""
     ranked = ordered_findings(findings)
     serious = [f for f in ranked if f.severity.rank > 0] or ranked
+    shown = serious[:TOP_FINDINGS]
+    rest = [f for f in ranked if f not in shown]
     checks: list[str] = []
     for report in findings.layers:
         checks += [check for check in report.fractions if check not in checks]
@@ -90,10 +94,13 @@ def overview(findings: Findings) -> dict[str, Any]:
         "checks": checks,
         "verdict": verdict(findings),
         "layers": [layer_summary(report) for report in findings.layers],
-        "top_findings": findings_for_page(findings, serious[:TOP_FINDINGS]),
+        "top_findings": findings_for_page(findings, shown),
+        "other_findings": findings_for_page(findings, rest),
         "finding_count": len(findings.findings),
+        "check_labels": {check: looks.label(check) for check in checks},
         "figures": {"depth": figures.depth_fractions(findings, checks),
                     "signal": figures.depth_signal(findings)},
+        "explain": explain.explained(findings.settings, ("gradient gain", "output scale")),
         "caveat": findings.caveat or CAVEAT,
     }
 
@@ -112,10 +119,13 @@ def _sort_key(values: np.ndarray) -> np.ndarray:
 
 def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = False,
               page: int = 1, per_page: int = UNITS_PER_PAGE,
-              state: str | None = None) -> dict[str, Any]:
+              state: str | None = None, only: Any = None,
+              finding: str | None = None) -> dict[str, Any]:
     """One page of the unit table, sorted and filtered on the server (thousands stay fast).
 
     Rows carry the kind's roster columns; ``sort`` may name any column of the unit table.
+    ``only`` (unit indices, with ``finding`` naming the check they come from) keeps just
+    those units: the roster of one finding.
     """
     table = {name: np.asarray(values) for name, values in report.unit_table.items()}
     units = report.info.units
@@ -128,6 +138,8 @@ def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = Fal
                                    if c in table and not _all_missing(table[c])]
     picked = np.arange(units) if not state else np.flatnonzero(
         states == ("" if state == "none" else state))
+    if only is not None:
+        picked = np.intersect1d(picked, np.asarray(only, dtype=np.int64))
     if sort not in table:
         sort = "unit"
     if sort not in columns:  # sorted by a measure the roster leaves out: show it too
@@ -145,10 +157,13 @@ def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = Fal
     rows = [{column: plain(table[column][i]) for column in columns} for i in shown]
     return {"columns": columns, "rows": rows, "page": page, "pages": pages,
             "per_page": per_page, "total": int(ordered.size), "sort": sort,
-            "descending": descending, "state": state or "",
+            "descending": descending, "state": state or "", "finding": finding or "",
+            "finding_label": looks.label(finding) if finding else "",
             "next_order": {c: ("asc" if descending else "desc") if c == sort
                            else ("asc" if c in ("unit", "state") else "desc") for c in columns},
-            "states": dict(Counter(s or "none" for s in states.tolist()))}
+            "states": {(str(s) or "none"): int(n) for s, n in zip(*np.unique(states,
+                                                                         return_counts=True))},
+            "state_labels": {(str(s) or "none"): looks.label(str(s)) for s in np.unique(states)}}
 
 
 def weights_panel(report: LayerReport) -> dict[str, Any] | None:
@@ -172,9 +187,15 @@ def weights_panel(report: LayerReport) -> dict[str, Any] | None:
     return panel
 
 
-def layer_detail(findings: Findings, report: LayerReport, **table_options: Any) -> dict:
-    """The layer page: inputs under the curve, the unit table and map, the weights."""
+def layer_detail(findings: Findings, report: LayerReport, finding: str | None = None,
+                 **table_options: Any) -> dict:
+    """The layer page: inputs under the curve, the unit table and map, the weights.
+    ``finding`` (a check id) narrows the roster to the units that check's finding names."""
     info = report.info
+    named = next((f for f in findings.for_layer(info.name) if f.check == finding and f.units),
+                 None)
+    if named is not None:
+        table_options.update(only=named.units, finding=named.check)
     hist = report.histograms.get("preact")
     inputs = None
     if hist is not None and np.asarray(hist.counts).size:
@@ -193,73 +214,19 @@ def layer_detail(findings: Findings, report: LayerReport, **table_options: Any) 
             findings.for_layer(info.name), key=lambda f: -f.severity.rank)),
         "units": unit_rows(report, **table_options),
         "weights": weights_panel(report),
-        "figures": {"inputs": inputs, "outputs": outputs, "unit_map": figures.unit_map(report)},
+        "figures": {"inputs": inputs, "outputs": outputs, "unit_map": unit_map(report)},
+        "zone_note": figures.zone_note(info, findings.settings),
+        "explain": explain.explained(findings.settings),
         "caveat": findings.caveat or CAVEAT,
     }
 
 
-def _values_histogram(values: np.ndarray, axis_for=None) -> tuple[np.ndarray, np.ndarray, int]:
-    """Counts of the finite values in UNIT_BINS bins over their range, and how many were not
-    finite. ``axis_for(low, high)`` may name the axis the bins are drawn on: on an asinh axis
-    they are made equally wide there, not in the values themselves."""
-    finite = values[np.isfinite(values)]
-    if finite.size == 0:
-        return np.array([0.0, 1.0]), np.array([0]), int(values.size)
-    low, high = float(finite.min()), float(finite.max())
-    if high - low < 1e-12:
-        low, high = low - 0.5, high + 0.5
-    axis = axis_for(low, high) if axis_for is not None else None
-    if axis is not None and axis.transformed:
-        edges = axis.edges(low, high, UNIT_BINS)
-        edges[[0, -1]] = low, high  # exact ends: sinh(asinh(x)) may miss x by an ulp
-        counts, edges = np.histogram(finite, bins=edges)
-    else:
-        counts, edges = np.histogram(finite, bins=UNIT_BINS, range=(low, high))
-    return edges, counts, int(values.size - finite.size)
-
-
 def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) -> dict:
     """One unit: its own histograms read from the stored dump, weights, and findings."""
-    info = report.info
-    layer = dump.layer(info.name)
-    row = {column: plain(np.asarray(values)[unit])
-           for column, values in report.unit_table.items()}
-    state = row.get("state") or ""
-    # Measures that do not apply to this kind are NaN (None here): leave them out.
-    row = {column: value for column, value in row.items() if value not in (None, "")}
-    charts: dict[str, Any] = {}
-    nonfinite = {}
-    if info.has("preact"):
-        z = layer.unit_values("preact", unit)
-        edges, counts, nonfinite["preact"] = _values_histogram(
-            z, lambda low, high: figures.input_axis(info, findings.settings, low, high))
-        finite = z[np.isfinite(z)]
-        band = np.percentile(finite, [5, 95]) if finite.size else None
-        charts["preact"] = figures.inputs_under_curve(
-            info, edges, counts, findings.settings,
-            f"Unit {unit}: total inputs under f(z)", band=band)
-    if info.has("output"):
-        y = layer.unit_values("output", unit)
-        edges, counts, nonfinite["output"] = _values_histogram(y)
-        charts["output"] = figures.histogram_figure(edges, counts, f"Unit {unit}: outputs",
-                                                    "output y")
-    weights = None
-    incoming = layer.weight()
-    if incoming is not None:
-        row_weights = incoming[unit]
-        bias = layer.bias()
-        weights = {"count": int(row_weights.size),
-                   "norm": plain(float(np.linalg.norm(row_weights))),
-                   "bias": None if bias is None else plain(bias[unit]),
-                   "values": plain(row_weights[:MAX_LISTED_WEIGHTS])}
-        charts["weights"] = figures.value_histogram(row_weights, f"Unit {unit}: incoming "
-                                                    "weights", "weight")
-    named = [f for f in findings.for_layer(info.name) if unit in f.units]
-    entries = findings_for_page(findings, named)
-    for finding, entry in zip(named, entries):
-        if finding.unit_measures:
-            entry["unit_measure"] = plain(finding.unit_measures[finding.units.index(unit)])
-        entry.pop("units", None)
-    return {"layer": layer_summary(report), "unit": unit, "row": row,
-            "state": state, "measured": info.has("preact") or info.has("output"), "nonfinite": nonfinite, "weights": weights,
-            "findings": entries, "figures": charts, "caveat": findings.caveat or CAVEAT}
+    # Values near the largest float overflow in sums and spans; those numbers become null
+    # (embed.plain) and the charts fall back to plain axes, so the warnings say nothing new.
+    with np.errstate(over="ignore", invalid="ignore"):
+        payload = unitcard.unit_detail(findings, dump, report, unit, findings_for_page)
+    payload["layer"] = layer_summary(report)
+    payload["explain"] = explain.explained(findings.settings)
+    return payload

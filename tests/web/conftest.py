@@ -5,6 +5,8 @@ The planted model and the HTTP helpers live in tests/support/web.py.
 
 from __future__ import annotations
 
+import os
+import shutil
 from pathlib import Path
 
 import h5py
@@ -69,3 +71,35 @@ def ready_dump(client, planted_dump) -> str:
     body = wait_until_done(client, response.get_json()["id"])
     assert body["status"] == "ready", body
     return body["id"]
+
+
+#: Debian's chromium, headless, with nothing that would reach the network on its own.
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                 "--no-first-run", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync"]
+
+
+def no_browser(reason: str):
+    if os.environ.get("CI"):
+        pytest.fail(f"browser tests need chromium in CI: {reason}")
+    pytest.skip(reason)
+
+
+@pytest.fixture(scope="session")
+def browser():
+    """One headless Chromium for every browser test of the session (Playwright's sync API
+    allows one running instance per process)."""
+    executable = shutil.which("chromium")
+    if executable is None:
+        no_browser("no 'chromium' on PATH (Debian: apt-get install chromium)")
+    from playwright.sync_api import Error, sync_playwright
+
+    with sync_playwright() as playwright:
+        try:
+            launched = playwright.chromium.launch(executable_path=executable, args=CHROMIUM_ARGS)
+        except Error as error:
+            no_browser(f"chromium did not start: {error.message.splitlines()[0]}")
+        yield launched
+        launched.close()
+
+

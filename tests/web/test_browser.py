@@ -9,7 +9,6 @@ ACTDOC_UPDATE_SCREENSHOTS=1 the README's image, docs/img/overview.png, is writte
 from __future__ import annotations
 
 import os
-import shutil
 import threading
 from pathlib import Path
 
@@ -23,31 +22,6 @@ pytestmark = pytest.mark.browser
 REPO = Path(__file__).resolve().parents[2]
 ARTIFACTS = REPO / "tests" / "artifacts"
 DOCS_IMAGE = REPO / "docs" / "img" / "overview.png"
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-                 "--no-first-run", "--disable-background-networking",
-                 "--disable-component-update", "--disable-sync"]
-
-
-def no_browser(reason: str):
-    if os.environ.get("CI"):
-        pytest.fail(f"browser tests need chromium in CI: {reason}")
-    pytest.skip(reason)
-
-
-@pytest.fixture(scope="session")
-def browser():
-    executable = shutil.which("chromium")
-    if executable is None:
-        no_browser("no 'chromium' on PATH (Debian: apt-get install chromium)")
-    from playwright.sync_api import Error, sync_playwright
-
-    with sync_playwright() as playwright:
-        try:
-            launched = playwright.chromium.launch(executable_path=executable, args=CHROMIUM_ARGS)
-        except Error as error:
-            no_browser(f"chromium did not start: {error.message.splitlines()[0]}")
-        yield launched
-        launched.close()
 
 
 def serve_in_thread(app):
@@ -150,12 +124,12 @@ def test_demo_shelf_drift_page_and_the_readme_survey(browser, demo_url):
     page.check('input[aria-label="compare relu_dying_step1.h5"]')
     page.check('input[aria-label="compare relu_dying_step5.h5"]')
     button.click()
-    page.wait_for_url("**/drift?*")
+    page.wait_for_url("**/compare?*")
     assert page.locator("table.drift thead th.num").count() == 2
 
     page.goto(demo_url + "/")
     page.click("text=compare the demo checkpoints")
-    page.wait_for_url("**/drift?*")
+    page.wait_for_url("**/compare?*")
     assert "hidden2" in chart_title(page, "layer-1")
     labels = page.locator("table.drift thead th.num").all_text_contents()
     assert labels == ["step1", "step2", "step3", "step4", "step5"]

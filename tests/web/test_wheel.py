@@ -28,3 +28,4 @@ def test_wheel_holds_templates_and_static_files(tmp_path):
         assert f"actdoc/static/{name}" in names
     assert "actdoc/web/app.py" in names and "actdoc/workspace/__init__.py" in names
     assert "actdoc/confine/__main__.py" in names
+    assert "actdoc/docs/checks.md" in names  # shown by the /help/checks page

@@ -1,0 +1,91 @@
+"""How each check and unit state looks on the dashboard: its label, colour, marker and glyph.
+
+One table keyed by check id. A check the table does not know (a new one) gets a readable label
+made from its id and a look from the fallback cycle, so adding a check needs no edit here; an
+entry only makes its look deliberate. The ids themselves stay in the JSON twins.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Look:
+    """A check's face: ``label`` for legends and chips, ``colour`` for charts and chips (dark
+    enough for white-background text at 4.5:1), ``symbol`` a plotly marker name and ``glyph``
+    the same shape as a character beside the label, so state never rests on colour alone."""
+
+    label: str
+    colour: str
+    symbol: str
+    glyph: str
+    #: What a finding's per-unit number is, for "this unit: ..."; ``share``: print it as %.
+    measure: str = "this unit's value of the check's measure"
+    share: bool = False
+
+
+#: The unit with no finding.
+NO_FINDING = Look("no finding", "#2f7d54", "circle", "●")
+
+LOOKS: dict[str, Look] = {
+    "dead": Look("dead", "#a8322b", "x", "✕", "share of observations where it is active",
+                 True),
+    "dormant": Look("dormant", "#b4531a", "triangle-down", "▼",
+                    "share of observations where it is active", True),
+    "saturated": Look("saturated", "#8a6100", "square", "■",
+                      "share of observations saturated on its busier side", True),
+    "near_binary": Look("near binary (two-valued)", "#6d3fa8", "diamond", "◆",
+                        "share of observations saturated on either side", True),
+    "linear_regime": Look("stuck in the near-linear zone", "#2f58b0", "triangle-up", "▲",
+                          "share of observations inside the near-linear zone", True),
+    "constant": Look("constant output", "#5c6470", "line-ew", "—",
+                     "range of its outputs (largest minus smallest)"),
+    "non_finite": Look("holds NaN or infinity", "#111111", "asterisk", "✱",
+                       "NaN or infinite values counted (recorded values and parameters)"),
+    "init_scale": Look("initial weight scale", "#2f7d54", "pentagon", "⬟"),
+    "vanishing_signal": Look("signal fading with depth", "#4b5563", "hexagon", "⬢"),
+    "exploding_signal": Look("signal growing with depth", "#9f1239", "star", "★"),
+}
+
+#: Looks handed to checks the table does not name, chosen by a stable hash of the id.
+FALLBACKS = (
+    Look("", "#0f6674", "cross", "✚"),
+    Look("", "#7c4a03", "hourglass", "⧗"),
+    Look("", "#5b3f8c", "bowtie", "⋈"),
+    Look("", "#3f6212", "star-square", "⯀"),
+)
+
+
+def look(check: str | None) -> Look:
+    """The look of ``check`` ("" or None: a unit no check names)."""
+    if not check:
+        return NO_FINDING
+    known = LOOKS.get(check)
+    if known is not None:
+        return known
+    pick = FALLBACKS[int(hashlib.sha256(check.encode()).hexdigest(), 16) % len(FALLBACKS)]
+    return Look(check.replace("_", " "), pick.colour, pick.symbol, pick.glyph)
+
+
+def as_dict(check: str | None) -> dict[str, str | bool]:
+    """The look as plain data for a page and its JSON twin."""
+    face = look(check)
+    return {"id": check or "", "label": face.label, "colour": face.colour,
+            "symbol": face.symbol, "glyph": face.glyph}
+
+
+def label(check: str | None) -> str:
+    return look(check).label
+
+
+def colour(check: str | None) -> str:
+    return look(check).colour
+
+
+def css_name(check: str | None) -> str:
+    """The check id as a class-name suffix: "no-finding" for none, other characters dropped."""
+    if not check:
+        return "no-finding"
+    return "".join(c if c.isalnum() or c in "_-" else "-" for c in check)
