@@ -24,7 +24,9 @@ DEFAULT_BLOCK_OBSERVATIONS = 4096
 
 ACTIVATION_ARRAYS = ("preact", "output")
 PARAMETER_ARRAYS = ("weight", "bias")
-LAYER_ARRAYS = ACTIVATION_ARRAYS + PARAMETER_ARRAYS
+#: Optional dL/dz on the probe batch, the shape of preact (docs/dump-layout.md, an extension).
+GRADIENT_ARRAY = "grad"
+LAYER_ARRAYS = ACTIVATION_ARRAYS + PARAMETER_ARRAYS + (GRADIENT_ARRAY,)
 
 
 class ActivationKind(str, Enum):
@@ -332,6 +334,28 @@ class Finding:
     #: Per-unit value of the measure, aligned with ``units`` (e.g. each unit's active share);
     #: empty for layer-level checks.
     unit_measures: tuple[float, ...] = ()
+    #: The other checks that named the same layer, so a reader sees findings that explain each
+    #: other together (docs/findings.md).
+    related: tuple[str, ...] = ()
+
+
+#: The ``layer`` of findings about the probe batch itself (they name no layer of the network).
+PROBE_LAYER = "probe/input"
+
+
+@dataclass(frozen=True)
+class ProbeReport:
+    """What the probe batch itself looks like: its size, its features' scale, bad rows.
+
+    ``feature_mean`` and ``feature_std`` are per feature (NaN without a stored probe input).
+    """
+
+    samples: int
+    features: int
+    feature_mean: np.ndarray = field(repr=False)
+    feature_std: np.ndarray = field(repr=False)
+    nonfinite_rows: int
+    stored: bool
 
 
 @dataclass(frozen=True)
@@ -398,6 +422,7 @@ class Findings:
     findings: tuple[Finding, ...]
     settings: Mapping[str, float] = field(default_factory=dict)
     caveat: str = CAVEAT
+    probe: ProbeReport | None = None
 
     def layer(self, name: str) -> LayerReport:
         for report in self.layers:

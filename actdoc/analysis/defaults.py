@@ -111,6 +111,46 @@ TABLE: tuple[SettingRow, ...] = (
                "that while catching scales off by an order of magnitude",
                "He et al. 2015 (ICCV) eq. 10; Glorot & Bengio 2010 (AISTATS) eq. 16; factor: "
                "common practice", 1.0, INF, high_inclusive=False),
+    SettingRow("layer_saturated_share", 0.5,
+               "a logistic or tanh layer with at least this share of all its observations "
+               "(units x observations, pooled) in the saturated zone gets a layer finding "
+               "(saturated_layer)",
+               "units saturated on 90% of samples each escape the unit check yet leave the layer "
+               "passing a few percent of its gradient; half the layer's inputs past the edge is "
+               "a layer that mostly does not learn",
+               "common practice", 0.0, 1.0),
+    SettingRow("low_gradient_gain", 0.1,
+               "a logistic or tanh layer whose mean f'(z) is below this share of its peak gets "
+               "a layer finding (saturated_layer; critical together with the pooled share)",
+               "backpropagation multiplies the gradient by f'(z) at every layer (Rumelhart, "
+               "Hinton & Williams 1986); a tenth of the peak gain cuts it tenfold per layer",
+               "common practice; the product rule of backpropagation", 0.0, 1.0),
+    SettingRow("gradient_limit", 100.0,
+               "where the dump stores grad (dL/dz), a layer whose gradient RMS is below "
+               "1/limit or above limit times that of the last layer with a gradient shows a "
+               "vanishing or exploding gradient (gradient_flow; critical past limit squared)",
+               "two orders of magnitude between the output's gradient and a layer's leaves "
+               "that layer's weights barely moving at any learning rate that keeps the top "
+               "layers stable (Glorot & Bengio 2010, section 4.2, compare gradients across "
+               "layers the same way)",
+               "Glorot & Bengio 2010 (AISTATS) section 4.2; the limit: common practice", 1.0,
+               INF, high_inclusive=False),
+    SettingRow("input_scale_limit", 4.0,
+               "a probe input feature (that varies) whose RMS sqrt(mean^2 + var) is above this, "
+               "or below its inverse, is off the standardised scale (probe_scale)",
+               "Glorot and He initialisation assume inputs of unit scale; a feature 4x larger "
+               "makes the first layer's total inputs 4x larger, as an init off by the same "
+               "factor would (the init_scale limit)",
+               "common practice; LeCun et al. 1998 (Efficient BackProp) recommend zero-mean, "
+               "unit-variance inputs", 1.0, INF, high_inclusive=False),
+    SettingRow("probe_expected_firings", 10.0,
+               "the probe batch should hold enough samples that a unit active at the dormant "
+               "limit fires this many times on it (samples >= this / dormant_active_share: 1000 "
+               "by default); smaller probes get a probe_size finding",
+               "n p >= 10 is the usual rule for treating a binomial count as normal; below it a "
+               "dormant unit and a dead one, or a 95% and a 90% saturated one, cannot be told "
+               "apart reliably",
+               "common practice in statistics (normal approximation to the binomial)", 0.0, INF),
     SettingRow("critical_share", 0.5,
                "a dead, saturated or near-binary finding covering at least this share of its "
                "layer's units is critical",

@@ -1,8 +1,7 @@
 """``analyze``: one pass over every layer, then the registered checks, then the Findings.
 
 Each layer's arrays are read once (``accumulate_layer``); everything after that works on the
-small per-unit statistics. Unit checks run in exclusivity order, each claiming its units so a
-unit is named by at most one of dead, dormant, saturated, near_binary, linear_regime, constant.
+small per-unit statistics (``actdoc.analysis.verdicts`` runs the registered checks on them).
 """
 
 from __future__ import annotations
@@ -17,30 +16,11 @@ from typing import Callable
 
 import numpy as np
 
-from actdoc.analysis.checks import Check, LayerInput, UnitInput, all_checks
+from actdoc.analysis import verdicts
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.stats import LayerStats, accumulate_layer
-from actdoc.analysis.summary import (
-    gradient_gain,
-    histograms,
-    output_scale,
-    unit_table,
-    weight_summary,
-)
 from actdoc.digest import BackgroundDigest, file_sha256
-from actdoc.model import (
-    Dump,
-    Finding,
-    Findings,
-    Layer,
-    LayerReport,
-    LayerStatus,
-    Severity,
-    SourceInfo,
-    WeightSummary,
-)
-
-STATE_WIDTH = 16
+from actdoc.model import Dump, Findings, Layer, SourceInfo
 
 
 def source_info(dump: Dump, digest: bool = True) -> SourceInfo:
@@ -49,87 +29,6 @@ def source_info(dump: Dump, digest: bool = True) -> SourceInfo:
     path = Path(dump.path)
     digest = file_sha256(path) if digest and path.is_file() else ""
     return SourceInfo(file=path.name, sha256=digest, format=dump.format, samples=dump.samples)
-
-
-def _severity(check: Check, named: int, units: int, settings: Settings) -> Severity:
-    if check.always_critical:
-        return Severity.CRITICAL
-    share = named / units if units else 0.0
-    if check.critical_by_share and share >= settings.critical_share:
-        return Severity.CRITICAL
-    return Severity.WARNING if share >= settings.warning_share else Severity.INFO
-
-
-def _aggregate(values: np.ndarray, how: str) -> float:
-    if values.size == 0:
-        return float("nan")
-    return float({"mean": np.mean, "max": np.max, "sum": np.sum}[how](values))
-
-
-def _unit_findings(layer: Layer, stats: LayerStats | None, checks: list[Check],
-                   settings: Settings, parameter_nonfinite: np.ndarray | None):
-    """Findings of the unit checks, the share of units per check, and each unit's state.
-    Without statistics (a weights-only layer) only the static checks run."""
-    info = layer.info
-    if stats is None:
-        checks = [check for check in checks if check.static]
-        unit = UnitInput(info, None, settings, parameter_nonfinite, layer.weight(), layer.bias())
-    else:
-        unit = UnitInput(info, stats, settings, parameter_nonfinite)
-    claimed = np.zeros(info.units, bool)
-    states = np.full(info.units, "", dtype=f"<U{STATE_WIDTH}")
-    sides = np.full(info.units, "", dtype="<U4")
-    findings, fractions = [], {}
-    for check in checks:
-        if not check.applies_to(info.kind):
-            continue
-        verdict = check.evaluate(unit)
-        if verdict is None:
-            continue
-        mask = np.asarray(verdict.mask, bool)
-        if check.rank is not None:
-            mask &= ~claimed
-            claimed |= mask
-            states[mask] = check.name
-        if check.name == "saturated" and stats.low is not None:
-            sides[mask] = np.where(stats.low[mask] >= stats.high[mask], "low", "high")
-        fractions[check.name] = float(mask.sum()) / info.units if info.units else 0.0
-        named = np.flatnonzero(mask)
-        if named.size == 0:
-            continue
-        values = np.asarray(verdict.values, np.float64)[named]
-        cause, remedy = check.advice(info.kind)
-        share = named.size / info.units
-        findings.append(Finding(
-            check=check.name,
-            severity=_severity(check, named.size, info.units, settings),
-            layer=info.name, units=tuple(int(u) for u in named),
-            measure=_aggregate(values, verdict.aggregate), threshold=float(verdict.threshold),
-            summary=(f"Layer '{info.name}': {named.size} of {info.units} units ({share:.1%}) "
-                     f"{verdict.phrase}."),
-            cause=cause, remedy=remedy, unit_measures=tuple(float(v) for v in values)))
-    return findings, fractions, states, sides
-
-
-def _layer_findings(layer_input: LayerInput, checks: list[Check]) -> list[Finding]:
-    findings = []
-    for check in checks:
-        verdict = check.evaluate(layer_input)
-        if verdict is None:
-            continue
-        cause, remedy = check.advice(layer_input.info.kind)
-        findings.append(Finding(
-            check=check.name, severity=Severity.WARNING, layer=layer_input.info.name, units=(),
-            measure=float(verdict.measure), threshold=float(verdict.threshold),
-            summary=f"Layer '{layer_input.info.name}': {verdict.summary}.",
-            cause=cause, remedy=remedy))
-    return findings
-
-
-def _status(findings: list[Finding]) -> LayerStatus:
-    ranks = [f.severity.rank for f in findings]
-    worst = max(ranks, default=0)
-    return {2: LayerStatus.CRITICAL, 1: LayerStatus.WARNING}.get(worst, LayerStatus.HEALTHY)
 
 
 #: Stored activation bytes per task: layers larger than this are cut into sample ranges so the
@@ -251,65 +150,8 @@ def analyze(dump: Dump, settings: Settings | None = None,
     return findings
 
 
-@np.errstate(over="ignore", invalid="ignore")  # infinite moments of huge finite values
 def findings_from_stats(dump: Dump, measured: list[LayerStats | None], settings: Settings,
                         source: SourceInfo | None = None) -> Findings:
     """Findings from per-layer statistics already measured (one entry per layer of ``dump``,
     None for a layer without activations), e.g. merged from shards or workers."""
-    checks = all_checks()
-    unit_checks = [c for c in checks if c.scope == "unit"]
-    layer_checks = [c for c in checks if c.scope == "layer"]
-    scales = [output_scale(stats) for stats in measured]
-    reference = next(((layer.name, scale) for layer, scale in zip(dump.layers, scales)
-                      if scale is not None and np.isfinite(scale) and scale > 0), (None, None))
-
-    reports, all_findings = [], []
-    for layer, stats, scale in zip(dump.layers, measured, scales):
-        info = layer.info
-        weights, bad_parameters = weight_summary(layer)
-        if stats is not None:
-            found, fractions, states, sides = _unit_findings(
-                layer, stats, unit_checks, settings, bad_parameters)
-        else:
-            found, fractions, states, sides = _parameter_only(layer, weights, bad_parameters,
-                                                              unit_checks, settings)
-            if weights is not None:
-                static, static_fractions, _, _ = _unit_findings(
-                    layer, None, unit_checks, settings, bad_parameters)
-                found += static
-                fractions.update(static_fractions)
-        found += _layer_findings(LayerInput(info, stats, settings, weights, scale,
-                                            reference[0], reference[1]), layer_checks)
-        all_findings += found
-        reports.append(LayerReport(
-            info=info, fractions=fractions, status=_status(found), output_scale=scale,
-            gradient_gain=gradient_gain(stats),
-            unit_table=unit_table(stats, info.units, states, sides),
-            histograms=histograms(stats), weights=weights))
-    return Findings(source=source or source_info(dump), layers=tuple(reports),
-                    findings=tuple(all_findings), settings=settings.as_mapping())
-
-
-def _parameter_only(layer: Layer, weights: WeightSummary | None,
-                    bad_parameters: np.ndarray | None, unit_checks: list[Check],
-                    settings: Settings):
-    """A layer with weights but no recorded activations: only non-finite parameters apply."""
-    info = layer.info
-    states = np.full(info.units, "", dtype=f"<U{STATE_WIDTH}")
-    sides = np.full(info.units, "", dtype="<U4")
-    findings = []
-    if bad_parameters is not None and bad_parameters.any():
-        check = next(c for c in unit_checks if c.name == "non_finite")
-        named = np.flatnonzero(bad_parameters > 0)
-        cause, remedy = check.advice(info.kind)
-        findings.append(Finding(
-            check=check.name, severity=Severity.CRITICAL, layer=info.name,
-            units=tuple(int(u) for u in named), measure=float(bad_parameters.sum()),
-            threshold=0.0,
-            summary=(f"Layer '{info.name}': {named.size} of {info.units} units hold NaN or "
-                     f"infinite parameters."),
-            cause=cause, remedy=remedy,
-            unit_measures=tuple(float(v) for v in bad_parameters[named])))
-    fractions = {"non_finite": float((bad_parameters > 0).mean())} \
-        if bad_parameters is not None else {}
-    return findings, fractions, states, sides
+    return verdicts.findings_from_stats(dump, measured, settings, source or source_info(dump))

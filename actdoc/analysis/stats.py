@@ -31,6 +31,7 @@ from actdoc.analysis.accumulate import Accumulator
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.histograms import grids_for
 from actdoc.analysis.moments import Moments
+from actdoc.analysis.sidestats import SideStats
 from actdoc.analysis.tiles import paired_tiles
 from actdoc.model import ActivationKind, Layer
 from actdoc.neurons import NONNEGATIVE_OUTPUT, Neuron
@@ -60,6 +61,8 @@ class LayerStats:
     linear: np.ndarray | None = None
     gain_sum: np.ndarray | None = None
     histograms: dict[str, np.ndarray] = field(default_factory=dict)
+    #: non-finite samples, per-sample firing, gradient sums (actdoc.analysis.sidestats)
+    side: SideStats | None = None
 
     @property
     def kind(self) -> Kind:
@@ -91,6 +94,7 @@ class LayerStats:
             high=add(self.high, other.high), linear=add(self.linear, other.linear),
             gain_sum=add(self.gain_sum, other.gain_sum),
             histograms={k: v + other.histograms[k] for k, v in self.histograms.items()},
+            side=None if self.side is None or other.side is None else self.side.merge(other.side),
         )
 
     def mean_abs(self) -> np.ndarray:
@@ -136,6 +140,7 @@ def empty_stats(layer: Layer, settings: Settings) -> LayerStats:
 
     zoned = kind in (Kind.LOGISTIC, Kind.TANH) or (kind is Kind.STOCHASTIC_BINARY and has_z)
     gain_elementwise = kind in ELEMENTWISE_GAIN and (has_z or kind is Kind.SOFTPLUS)
+    firing = kind in (Kind.RELU, Kind.LEAKY_RELU, Kind.THRESHOLD, Kind.STOCHASTIC_BINARY)
     return LayerStats(
         name=info.name, neuron=neuron, units=units, arrays=arrays, rows=0,
         moments=Moments.zeros(units),
@@ -149,6 +154,7 @@ def empty_stats(layer: Layer, settings: Settings) -> LayerStats:
         gain_sum=np.zeros(units) if gain_elementwise else None,
         histograms={k: np.zeros(g.bins, np.int64) for k, g in grids_for(kind).items()
                     if k in arrays or k == "output" or neuron.invertible},
+        side=SideStats.empty(layer, per_sample=firing and info.positions > 1),
     )
 
 
@@ -221,9 +227,12 @@ def accumulate_layer(
     units = stats.units
     tiled = None if settings.read_ahead_blocks > 0 else paired_tiles(
         layer, settings.block_observations, start_sample, stop_sample)
+    side = stats.side
     if tiled is not None:  # uncompressed storage seen in place: no block is copied
         for block_rows, tiles in tiled:
+            bad = int(stats.nonfinite.sum())
             acc.add_block(tiles)
+            side.add_tiles(tiles, stats, int(stats.nonfinite.sum()) != bad)
             stats.rows += block_rows
             if progress is not None:
                 progress(block_rows)
@@ -235,11 +244,17 @@ def accumulate_layer(
             blocks = _read_ahead(blocks, settings.read_ahead_blocks)
         for z, y in blocks:
             block_rows = (y if y is not None else z).shape[0]
-            acc.add_block([(first_row, slice(0, units), z, y)])
+            bad = int(stats.nonfinite.sum())
+            tile = [(first_row, slice(0, units), z, y)]
+            acc.add_block(tile)
+            side.add_tiles(tile, stats, int(stats.nonfinite.sum()) != bad)
             stats.rows += block_rows
             first_row += block_rows
             if progress is not None:
                 progress(block_rows)
     if stats.kind is Kind.STOCHASTIC_BINARY and "output" not in stats.arrays:
         stats.active = stats.count - stats.low
+    if side.grad_squares is not None:
+        side.add_gradient(layer, settings.block_observations, start_sample,
+                          layer.info.samples if stop_sample is None else stop_sample)
     return stats

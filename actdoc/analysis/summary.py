@@ -3,7 +3,8 @@
 Reference weight scales: He et al. 2015 (ICCV, eq. 10 and, for a leaky slope a, eq. 15):
 std = sqrt(2 / ((1 + a^2) fan_in)) for rectified kinds and their smooth relatives (softplus,
 GELU, SiLU: common practice); Glorot & Bengio 2010 (AISTATS, eq. 16, written as a variance):
-std = sqrt(2 / (fan_in + fan_out)) for logistic, tanh, linear and binary kinds.
+std = sqrt(2 / (fan_in + fan_out)) for tanh, linear and threshold kinds, and 4 times that for
+the logistic and stochastic binary units, whose slope at 0 is 1/4 instead of 1.
 """
 
 from __future__ import annotations
@@ -20,13 +21,22 @@ Kind = ActivationKind
 HE_KINDS = frozenset({Kind.RELU, Kind.LEAKY_RELU, Kind.SOFTPLUS, Kind.GELU, Kind.SILU})
 
 
+#: Kinds whose slope at 0 is 1/4 (the logistic, and the firing probability of stochastic binary
+#: units): Glorot & Bengio 2010's derivation assumes a slope of 1, so these need 4 times its
+#: scale to keep the same gain (the standard choice for logistic layers).
+QUARTER_SLOPE_KINDS = frozenset({Kind.LOGISTIC, Kind.STOCHASTIC_BINARY})
+
+
 def reference_std(kind: Kind, fan_in: int, fan_out: int,
                   negative_slope: float = 0.0) -> tuple[float, str]:
     """The initial weight std recommended for ``kind``, and the name of its source."""
     if kind in HE_KINDS:
         slope = negative_slope if kind is Kind.LEAKY_RELU else 0.0
         return math.sqrt(2.0 / ((1.0 + slope * slope) * fan_in)), "He et al. 2015"
-    return math.sqrt(2.0 / (fan_in + fan_out)), "Glorot & Bengio 2010"
+    glorot = math.sqrt(2.0 / (fan_in + fan_out))
+    if kind in QUARTER_SLOPE_KINDS:
+        return 4.0 * glorot, "Glorot & Bengio 2010 x4 (logistic slope 1/4 at 0)"
+    return glorot, "Glorot & Bengio 2010"
 
 
 def weight_summary(layer: Layer) -> tuple[WeightSummary | None, np.ndarray | None]:
@@ -90,9 +100,25 @@ def dormant_scores(stats: LayerStats) -> np.ndarray:
         return mean_abs / layer_mean if layer_mean > 0 else np.full(stats.units, np.nan)
 
 
+def sample_firing(stats: LayerStats) -> np.ndarray | None:
+    """Per channel of a spatial layer: the share of samples on which it is active anywhere."""
+    side = stats.side
+    if side is None or side.sample_active is None:
+        return None
+    samples = stats.rows // max(1, side.positions)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return side.sample_active / samples if samples else np.full(stats.units, np.nan)
+
+
+def gradient_rms(stats: LayerStats | None) -> float | None:
+    """RMS of dL/dz over the layer (None where the dump stores no gradient)."""
+    return None if stats is None or stats.side is None else stats.side.gradient_rms()
+
+
 def unit_table(stats: LayerStats | None, units: int, states: np.ndarray,
-               sides: np.ndarray) -> dict[str, np.ndarray]:
-    """The per-unit columns the dashboard and the CSV show (NaN where not measured)."""
+               labels: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """The per-unit columns the dashboard and the CSV show (NaN where not measured); ``labels``
+    are the checks' label columns (saturation_side), written after the measures."""
     table: dict[str, np.ndarray] = {}
     if stats is not None:
         m = stats.moments
@@ -122,10 +148,18 @@ def unit_table(stats: LayerStats | None, units: int, states: np.ndarray,
         peak = stats.neuron.max_gain
         table["gradient_gain"] = (share(gain) / peak if gain is not None and peak
                                   else missing.copy())
+        samples = sample_firing(stats)
+        if samples is not None:
+            table["sample_active_fraction"] = samples
+        if stats.side is not None and stats.side.grad_squares is not None:
+            grad_n = stats.side.grad_count
+            with np.errstate(invalid="ignore", divide="ignore"):
+                table["gradient_rms"] = np.where(
+                    grad_n > 0, np.sqrt(stats.side.grad_squares / np.maximum(grad_n, 1)), np.nan)
         table["nonfinite"] = stats.nonfinite.astype(np.int64)
         table["observations"] = n.astype(np.int64)
     table["state"] = states
-    table["saturation_side"] = sides
+    table.update(labels)
     return table
 
 

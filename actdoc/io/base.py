@@ -17,6 +17,7 @@ import numpy as np
 from actdoc.errors import InvalidDump, UnreadableDump, UnsafeDump, describe
 from actdoc.model import (
     ACTIVATION_ARRAYS,
+    GRADIENT_ARRAY,
     ActivationKind,
     ActivationSource,
     ArrayInfo,
@@ -200,6 +201,17 @@ def layer_geometry(raw: RawDump, layer: RawLayer) -> tuple[int, int, tuple[int, 
             raise InvalidDump(f"{where}: shape {_shape_text(shape)} differs from the preact's "
                               f"{_shape_text(activation_shape)}; the two must match")
         activation_shape = shape
+    gradient = arrays.get(GRADIENT_ARRAY)
+    if gradient is not None:
+        shape = tuple(int(n) for n in gradient.shape)
+        where = describe(raw.path, layer.name, GRADIENT_ARRAY)
+        if activation_shape is None:
+            raise InvalidDump(f"{where}: a gradient needs the layer's preact or output beside it "
+                              f"(it is dL/dz on the same probe samples)")
+        if shape != activation_shape:
+            raise InvalidDump(f"{where}: shape {_shape_text(shape)} differs from the "
+                              f"activations' {_shape_text(activation_shape)}; dL/dz must have "
+                              f"the shape of preact")
     units = None if activation_shape is None else activation_shape[1]
     weight = arrays.get("weight")
     if weight is not None:

@@ -11,6 +11,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from actdoc.model import LAYER_ARRAYS
+
 
 class MemorySource:
     """An ArraySource over an in-memory numpy array."""
@@ -43,15 +45,16 @@ def dump_from_arrays(
     """Build a Dump from ``{layer: {"activation": kind, "preact": z, "output": y, ...}}``.
 
     Keys of each layer mapping are the array names of the dump layout (preact, output, weight,
-    bias) and its attributes (activation, negative_slope, threshold). Layers keep the mapping's
-    order. The arrays go through the same validation and activation inference as a file.
+    bias, and the optional grad) and its attributes (activation, negative_slope, threshold).
+    Layers keep the mapping's order. The arrays go through the same validation and activation
+    inference as a file.
     """
     from actdoc.io.base import RawDump, RawLayer, assemble
 
     raw_layers = []
     for position, (layer_name, spec) in enumerate(layers.items()):
         arrays = {k: MemorySource(v) for k, v in spec.items()
-                  if k in ("preact", "output", "weight", "bias") and v is not None}
+                  if k in LAYER_ARRAYS and v is not None}
         attrs = {k: v for k, v in spec.items() if k not in arrays and v is not None}
         raw_layers.append(RawLayer(name=layer_name, attrs=attrs, arrays=arrays, position=position))
     raw = RawDump(

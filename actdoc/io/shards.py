@@ -136,7 +136,7 @@ def _with_samples(info: LayerInfo, samples: int) -> LayerInfo:
     """
     arrays = {
         name: ArrayInfo((samples,) + tuple(shape.shape[1:]), shape.dtype)
-        if name in ("preact", "output") else shape
+        if name in ("preact", "output", "grad") else shape
         for name, shape in info.arrays.items()
     }
     return replace(info, samples=samples, arrays=arrays)
@@ -201,6 +201,7 @@ def place_layer(layer: Layer, offset: int, total_samples: int) -> Layer:
     """``layer`` of one shard seen inside the concatenated dump: its info says
     ``total_samples`` and its activation arrays answer for samples ``offset`` onwards. Pass
     ``start_sample=offset, stop_sample=offset + shard samples`` to read exactly the shard."""
-    sources = {name: PlacedSource(source, offset, total_samples) if name in ("preact", "output")
-               else source for name, source in layer.sources.items()}
+    sources = {name: PlacedSource(source, offset, total_samples)
+               if name in ("preact", "output", "grad") else source
+               for name, source in layer.sources.items()}
     return Layer(info=_with_samples(layer.info, total_samples), sources=sources)

@@ -128,12 +128,14 @@ class DumpWriter:
     def add_layer(self, name: str, activation: str | ActivationKind | None = None, *,
                   units: int | None = None, spatial: tuple[int, ...] = (),
                   weight: Any = None, bias: Any = None, preact: Any = None, output: Any = None,
+                  grad: Any = None,
                   threshold: float | None = None, negative_slope: float | None = None,
                   dtype: Any = "float32") -> None:
         """Declare a layer (in forward order) with its parameters and, optionally, its whole
-        activations. ``dtype`` is the stored type of preact and output (None keeps the arrays'
-        own float type). Arrays given here get chunks clipped to their length; for streaming,
-        give ``units`` (and ``spatial``) and ``append`` the blocks instead."""
+        activations (``grad``: dL/dz, optional). ``dtype`` is the stored type of preact, output
+        and grad (None keeps the arrays' own float type). Arrays given here get chunks clipped
+        to their length; for streaming, give ``units`` (and ``spatial``) and ``append`` the
+        blocks instead."""
         check_name(name)
         if name in self._specs:
             raise ValueError(f"layer '{name}': added twice")
@@ -148,7 +150,7 @@ class DumpWriter:
             group.attrs["negative_slope"] = float(negative_slope)
         self._specs[name] = {"kind": kind, "dtype": dtype, "units": units,
                              "spatial": tuple(spatial), "clip": preact is not None
-                             or output is not None, "same": None}
+                             or output is not None or grad is not None, "same": None}
         for array_name, value in (("weight", weight), ("bias", bias)):
             if value is not None:
                 value = np.asarray(value)
@@ -156,8 +158,8 @@ class DumpWriter:
                     value = value.astype(np.float32 if dtype is None else dtype)
                 group.create_dataset(array_name, data=value)
         self._check_parameters(name)
-        if preact is not None or output is not None:
-            self.append(name, preact=preact, output=output)
+        if preact is not None or output is not None or grad is not None:
+            self.append(name, preact=preact, output=output, grad=grad)
 
     def _check_parameters(self, name: str) -> None:
         """Weight rows and bias length against the layer's units, once the units are known
@@ -182,12 +184,14 @@ class DumpWriter:
             self.abort()
             raise ValueError(f"layer '{name}', {problem}")
 
-    def append(self, name: str, *, preact: Any = None, output: Any = None) -> None:
-        """Append a block of samples (``[block, units, *spatial]``) to a layer's arrays."""
+    def append(self, name: str, *, preact: Any = None, output: Any = None,
+               grad: Any = None) -> None:
+        """Append a block of samples (``[block, units, *spatial]``) to a layer's arrays
+        (``grad``: dL/dz on the same samples, optional)."""
         spec = self._specs.get(name)
         if spec is None:
             raise KeyError(f"layer '{name}': add_layer it first")
-        for array_name, value in (("preact", preact), ("output", output)):
+        for array_name, value in (("preact", preact), ("output", output), ("grad", grad)):
             if value is None:
                 continue
             block = np.asarray(value)
@@ -271,6 +275,11 @@ class DumpWriter:
                         group["preact"].shape != group["output"].shape:
                     raise ValueError(f"layer '{name}': preact has {group['preact'].shape[0]} "
                                      f"samples but output has {group['output'].shape[0]}")
+                if "grad" in group:
+                    beside = group["preact"] if "preact" in group else group.get("output")
+                    if beside is None or beside.shape != group["grad"].shape:
+                        raise ValueError(f"layer '{name}': grad must have the shape of preact "
+                                         f"(dL/dz on the same samples)")
         except ValueError:
             self.abort()
             raise

@@ -24,6 +24,7 @@ from actdoc.model import (
     LayerInfo,
     LayerReport,
     LayerStatus,
+    ProbeReport,
     Severity,
     SourceInfo,
     WeightSummary,
@@ -97,10 +98,18 @@ def save_findings(findings: Findings, folder: str | Path) -> None:
             {"check": f.check, "severity": f.severity.value, "layer": f.layer,
              "units": [int(u) for u in f.units], "measure": clean_number(f.measure),
              "threshold": clean_number(f.threshold), "summary": f.summary, "cause": f.cause,
-             "remedy": f.remedy, "unit_measures": [clean_number(m) for m in f.unit_measures]}
+             "remedy": f.remedy, "unit_measures": [clean_number(m) for m in f.unit_measures],
+             "related": list(f.related)}
             for f in findings.findings
         ],
+        "probe": None,
     }
+    probe = findings.probe
+    if probe is not None:
+        meta["probe"] = {"samples": probe.samples, "features": probe.features,
+                         "nonfinite_rows": probe.nonfinite_rows, "stored": probe.stored}
+        arrays["probe/feature_mean"] = np.asarray(probe.feature_mean, np.float64)
+        arrays["probe/feature_std"] = np.asarray(probe.feature_std, np.float64)
     np.savez(folder / ARRAYS_FILE, **arrays)
     (folder / META_FILE).write_text(json.dumps(meta), encoding="utf-8")
 
@@ -138,7 +147,12 @@ def load_findings(folder: str | Path) -> Findings:
                 units=tuple(f["units"]), measure=from_json_number(f["measure"]),
                 threshold=from_json_number(f["threshold"]), summary=f["summary"],
                 cause=f["cause"], remedy=f["remedy"],
-                unit_measures=tuple(from_json_number(m) for m in f["unit_measures"]))
+                unit_measures=tuple(from_json_number(m) for m in f["unit_measures"]),
+                related=tuple(f.get("related", ())))
         for f in meta["findings"])
+    probe = meta.get("probe")
+    if probe is not None:
+        probe = ProbeReport(feature_mean=arrays["probe/feature_mean"],
+                            feature_std=arrays["probe/feature_std"], **probe)
     return Findings(source=SourceInfo(**meta["source"]), layers=tuple(reports), findings=found,
-                    settings=meta["settings"], caveat=meta["caveat"])
+                    settings=meta["settings"], caveat=meta["caveat"], probe=probe)

@@ -8,7 +8,7 @@ from collections import Counter
 from typing import Any
 
 from actdoc.formatting import clean_number
-from actdoc.model import Finding, Findings, LayerReport, LayerStatus, Severity
+from actdoc.model import Finding, Findings, LayerReport, LayerStatus, ProbeReport, Severity
 
 SCHEMA = "actdoc.findings/1"
 
@@ -45,12 +45,30 @@ def finding_entry(finding: Finding) -> dict[str, Any]:
         "summary": finding.summary,
         "cause": finding.cause,
         "remedy": finding.remedy,
+        # Extension (docs/findings.md): the other checks that named the same layer
+        "related": list(finding.related),
+    }
+
+
+def probe_entry(probe: ProbeReport | None) -> dict[str, Any] | None:
+    """The document's ``probe`` section (an extension, docs/findings.md)."""
+    if probe is None:
+        return None
+    stored = probe.stored and probe.features > 0
+    return {
+        "samples": int(probe.samples),
+        "stored_input": bool(probe.stored),
+        "features": int(probe.features),
+        "nonfinite_rows": int(probe.nonfinite_rows),
+        "feature_std_max": clean_number(probe.feature_std.max()) if stored else None,
+        "feature_abs_mean_max": (clean_number(abs(probe.feature_mean).max())
+                                 if stored else None),
     }
 
 
 def to_document(findings: Findings) -> dict[str, Any]:
     """The findings document exactly as docs/contract.md section 4 fixes it, plus extensions
-    (``caveat``, ``verdict``, ``settings``, and per-layer ``output_scale``, ``gradient_gain``,
+    (``caveat``, ``verdict``, ``settings``, ``probe``, per-finding ``related``, and per-layer ``output_scale``, ``gradient_gain``,
     ``activation_note``)."""
     source = findings.source
     return {
@@ -67,6 +85,7 @@ def to_document(findings: Findings) -> dict[str, Any]:
         "caveat": findings.caveat,
         "settings": {name: clean_number(value) if isinstance(value, (int, float)) else value
                      for name, value in findings.settings.items()},
+        "probe": probe_entry(findings.probe),
     }
 
 

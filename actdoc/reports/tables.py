@@ -97,6 +97,8 @@ def render_markdown(findings: Findings) -> str:
             f"- measure: {exact(finding.measure)} (limit {exact(finding.threshold)})",
             f"- likely cause: {markdown_text(finding.cause)}",
             f"- what to try: {markdown_text(finding.remedy)}",
-            "",
         ]
+        if finding.related:
+            lines.append(f"- see also on this layer: {markdown_text(', '.join(finding.related))}")
+        lines.append("")
     return "\n".join(lines).rstrip() + "\n"

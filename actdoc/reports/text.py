@@ -53,6 +53,8 @@ def render_text(findings: Findings) -> str:
             lines.extend(wrap.wrap(f"units: {unit_list(finding.units)}"))
         lines.extend(wrap.wrap(f"cause: {visible(finding.cause)}"))
         lines.extend(wrap.wrap(f"try: {visible(finding.remedy)}"))
+        if finding.related:
+            lines.extend(wrap.wrap(f"see also: {visible(', '.join(finding.related))}"))
         lines.append("")
     lines.extend(textwrap.wrap("Note: " + visible(findings.caveat), WIDTH))
     return "\n".join(lines) + "\n"

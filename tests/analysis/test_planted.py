@@ -90,7 +90,7 @@ def test_severity_follows_the_share_of_units():
         z = rng.normal(size=(400, 20))
         z[:, :dead] = -3 - np.abs(z[:, :dead])
         findings = analyze(dump_from_arrays({"r": {"activation": "relu", "preact": z}}))
-        (finding,) = findings.findings
+        (finding,) = findings.for_layer("r")  # the probe's own size finding names no layer
         assert finding.check == "dead" and finding.severity.value == severity
         assert findings.layer("r").status.value == status
         assert findings.layer("r").fractions["dead"] == pytest.approx(dead / 20)

@@ -31,6 +31,7 @@ HIDDEN_UNITS = 24
 LEARNING_RATE = 0.05
 LOGISTIC_EDGE = math.log(99.0)   # docs/contract.md section 4
 SATURATED_SHARE = 0.95           # docs/contract.md section 4
+NEAR_BINARY_MINORITY = 0.05      # docs/contract.md section 4
 DORMANT_SHARE = 0.01             # docs/contract.md section 4 (dormant default)
 #: sklearn's names for the hidden activations and actdoc's kinds for them.
 KINDS = {"relu": "relu", "logistic": "logistic"}
@@ -111,8 +112,11 @@ def test_verdicts_equal_numpy_rules_on_sklearn_parameters(trained):
         assert dead
     else:
         low, high = (z < -LOGISTIC_EDGE).mean(axis=0), (z > LOGISTIC_EDGE).mean(axis=0)
+        # docs/checks.md: both sides count together, unless the rarer one makes it near-binary
+        binary = (low + high >= SATURATED_SHARE) & (np.fmin(low, high) >= NEAR_BINARY_MINORITY)
         assert named(findings, "saturated") == \
-            set(np.flatnonzero(np.fmax(low, high) >= SATURATED_SHARE).tolist())
+            set(np.flatnonzero((low + high >= SATURATED_SHARE) & ~binary).tolist())
+        assert named(findings, "near_binary") == set(np.flatnonzero(binary).tolist())
         # trained at this rate, the logistic units do reach the asymptotes on some samples
         assert (low + high).max() > 0.1
 

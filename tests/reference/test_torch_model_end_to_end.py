@@ -140,9 +140,10 @@ def expected_unit_states(kind: str, z: np.ndarray, y: np.ndarray) -> dict[str, s
     if kind in ("logistic", "tanh"):
         edge = LOGISTIC_EDGE if kind == "logistic" else TANH_EDGE
         low, high = (z < -edge).mean(axis=0), (z > edge).mean(axis=0)
-        claim("saturated", np.fmax(low, high) >= SATURATED_SHARE)
-        claim("near_binary", (low + high >= SATURATED_SHARE)
-              & (np.fmin(low, high) >= NEAR_BINARY_MINORITY))
+        # docs/checks.md, the refined rule: both sides together, unless near-binary
+        binary = (low + high >= SATURATED_SHARE) & (np.fmin(low, high) >= NEAR_BINARY_MINORITY)
+        claim("saturated", (low + high >= SATURATED_SHARE) & ~binary)
+        claim("near_binary", binary)
         root = math.sqrt(1.0 - LINEAR_GAIN_SHARE)
         linear_edge = 2.0 * math.atanh(root) if kind == "logistic" else math.atanh(root)
         claim("linear_regime", (np.abs(z) <= linear_edge).all(axis=0))
@@ -254,14 +255,17 @@ def test_layer_level_findings_follow_from_torch_tensors(recorded, analysed):
     for name in names:
         w = layers[name]["weight"].astype(np.float64)
         fan_in, fan_out = w.shape[1], w.shape[0]
+        # logistic layers: 4x Glorot, for the logistic's slope of 1/4 at 0 (docs/checks.md)
         ref = math.sqrt(2.0 / fan_in) if KINDS[name] == "relu" else \
-            math.sqrt(2.0 / (fan_in + fan_out))
+            math.sqrt(2.0 / (fan_in + fan_out)) * (4.0 if KINDS[name] == "logistic" else 1.0)
         if not 1.0 / INIT_FACTOR <= w.std() / ref <= INIT_FACTOR:
             expected.add(("init_scale", name))
     # the 500-fold rows of fc2 push its weight std far above Glorot's
     assert ("init_scale", "fc2") in expected
     for findings in analysed:
-        found = {(f.check, f.layer) for f in findings.findings if not f.units}
+        found = {(f.check, f.layer) for f in findings.findings
+                 if not f.units and f.check in ("vanishing_signal", "exploding_signal",
+                                                "init_scale")}
         assert found == expected
         assert findings.layer("fc1").output_scale == pytest.approx(rms["fc1"], rel=1e-5)
 
@@ -307,7 +311,12 @@ def test_torch_default_linear_init_against_actdoc_weight_summary(tmp_path):
     assert hidden.reference == "He et al. 2015"
     assert hidden.reference_std == pytest.approx(math.sqrt(2.0 / fan_in), rel=1e-12)
     assert hidden.std / hidden.reference_std == pytest.approx(math.sqrt(1.0 / 6.0), rel=0.01)
-    # Glorot & Bengio 2010 eq. 16 for logistic: sqrt(2 / (fan_in + fan_out))
-    assert logits.reference == "Glorot & Bengio 2010"
-    assert logits.reference_std == pytest.approx(math.sqrt(2.0 / (fan_in + fan_out)), rel=1e-12)
-    assert not [f for f in findings.findings if f.check == "init_scale"]
+    # Glorot & Bengio 2010 eq. 16, sqrt(2 / (fan_in + fan_out)), times 4 for the logistic's
+    # slope of 1/4 at 0 (docs/checks.md): torch's default is 1/sqrt(3 fan_in) = 0.033 here,
+    # 0.17 of that reference, below 1/4: flagged, but only as information (no unit shows it)
+    assert logits.reference.startswith("Glorot & Bengio 2010 x4")
+    glorot = math.sqrt(2.0 / (fan_in + fan_out))
+    assert logits.reference_std == pytest.approx(4 * glorot, rel=1e-12)
+    (init,) = [f for f in findings.findings if f.check == "init_scale"]
+    assert init.layer == "logits" and init.severity.value == "info"
+    assert init.measure == pytest.approx(logits.std / (4 * glorot), rel=1e-12)

@@ -61,9 +61,10 @@ def planted_preact(kind: K, role: str, rows: int, slot: int, rng) -> np.ndarray:
     e = SAT_EDGE.get(kind, 1.0)
     if role == "dead":  # 3 below zero at least (rectified, threshold) / p < 2e-6 (stochastic)
         return -(3 * e) - np.abs(rng.normal(0, 0.5, rows))
-    if role == "dormant":  # 0.5% of rows at +1, the rest at least 1 below zero
+    if role == "dormant":  # 0.5% of rows at +1, the rest at least 1 below zero; the active
+        # rows are consecutive, so a spatial unit fires on 0.5% of samples too (docs/checks.md)
         z = -1 - np.abs(rng.normal(0, 1, rows))
-        z[rng.choice(rows, rows // 200, replace=False)] = 1.0
+        z[:rows // 200] = 1.0
         return z
     if role == "saturated":  # twice the edge, on the side of the slot's parity
         side = 1 if slot % 2 else -1

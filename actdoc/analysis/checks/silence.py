@@ -1,8 +1,13 @@
 """Units that do not fire: dead (never active) and dormant (active on a tiny share).
 
 A rectified unit whose total input is negative on every observation passes no gradient to its
-incoming weights, so nothing in training can revive it (He et al. 2015 discuss the role of the
-initial scale; Maas et al. 2013 introduced the leaky variant to keep a gradient flowing).
+incoming weights on those inputs (He et al. 2015 discuss the role of the initial scale; Maas et
+al. 2013 introduced the leaky variant to keep a gradient flowing). A first-layer unit sees fixed
+data and stays dead; a deeper one can come back when the layers below change what it sees.
+
+Spatial layers: a channel is one unit observed at every position, and a sparse detector fires
+on few positions of many samples. It is dormant only when it also fires (anywhere) on fewer
+than ``dormant_active_share`` of the samples.
 """
 
 from __future__ import annotations
@@ -10,14 +15,17 @@ from __future__ import annotations
 import numpy as np
 
 from actdoc.analysis.checks import UnitInput, UnitVerdict, unit_check
+from actdoc.analysis.summary import sample_firing
 from actdoc.model import RECTIFIED_KINDS, SILENCEABLE_KINDS, ActivationKind
 
 Kind = ActivationKind
 
 RECTIFIED_CAUSE = (
-    "the unit's total input is negative for every probe sample: a large negative bias drift, "
-    "a too high learning rate that pushed the weights into a region where z < 0 everywhere, "
-    "an initialisation scale far from He's, or unstandardised inputs")
+    "the unit's total input is negative for every probe sample, so its incoming weights get no "
+    "gradient from them: a large negative bias drift, a too high learning rate that pushed the "
+    "weights into a region where z < 0 everywhere, an initialisation scale far from He's, or "
+    "unstandardised inputs. A first-layer unit sees fixed inputs and stays dead; a deeper unit "
+    "can come back as the layers below it change, but it often does not")
 RECTIFIED_REMEDY = (
     "lower the learning rate; initialise with He et al. 2015 (std sqrt(2/fan_in)); standardise "
     "the inputs; add a normalisation layer before the activation (Ioffe & Szegedy 2015); or use "
@@ -66,6 +74,11 @@ def dormant(unit: UnitInput) -> UnitVerdict | None:
     if share is None:
         return None
     limit = unit.settings.dormant_active_share
-    return UnitVerdict(
-        mask=(unit.stats.active > 0) & (share < limit), values=share, threshold=limit,
-        phrase=f"are active on fewer than {limit:.1%} of observations")
+    mask = (unit.stats.active > 0) & (share < limit)
+    phrase = f"are active on fewer than {limit:.1%} of observations"
+    samples = sample_firing(unit.stats)
+    if samples is not None:
+        mask &= samples < limit
+        phrase = (f"are active on fewer than {limit:.1%} of observations and fire anywhere "
+                  f"on fewer than {limit:.1%} of samples")
+    return UnitVerdict(mask=mask, values=share, threshold=limit, phrase=phrase)

@@ -10,14 +10,39 @@ from __future__ import annotations
 
 import numpy as np
 
-from actdoc.analysis.checks import UnitInput, UnitVerdict, unit_check
-from actdoc.model import SQUASHING_KINDS, ActivationKind
+from actdoc.analysis.checks import (
+    LayerInput,
+    LayerVerdict,
+    UnitInput,
+    UnitVerdict,
+    layer_check,
+    unit_check,
+)
+from actdoc.model import SQUASHING_KINDS, ActivationKind, Severity
 
 SATURATION_REMEDY = (
     "standardise the inputs; initialise with Glorot & Bengio 2010 (std sqrt(2/(fan_in + "
     "fan_out))); lower the learning rate; add weight decay against weight growth; add a "
     "normalisation layer before the activation (Ioffe & Szegedy 2015); or switch the hidden "
     "layer to tanh (zero-centred) or a rectified kind")
+TANH_SATURATION_REMEDY = (
+    "standardise the inputs; initialise with Glorot & Bengio 2010 (std sqrt(2/(fan_in + "
+    "fan_out))); lower the learning rate; add weight decay against weight growth; add a "
+    "normalisation layer before the activation (Ioffe & Szegedy 2015); or switch the hidden "
+    "layer to a rectified kind")
+
+
+SATURATION_CAUSE = (
+    "the total input sits beyond the saturation edge for almost every sample: weights or bias "
+    "grew too large (a high learning rate, no weight decay), an initialisation scale too large, "
+    "or unstandardised inputs")
+
+
+def saturation_advice(kind: ActivationKind) -> tuple[str, str] | None:
+    """Tanh layers are not told to switch to tanh."""
+    if kind is ActivationKind.TANH:
+        return SATURATION_CAUSE, TANH_SATURATION_REMEDY
+    return None
 
 
 def _shares(unit: UnitInput) -> tuple[np.ndarray, np.ndarray] | None:
@@ -27,24 +52,37 @@ def _shares(unit: UnitInput) -> tuple[np.ndarray, np.ndarray] | None:
     return unit.share(stats.low), unit.share(stats.high)
 
 
+def _binary_mask(low: np.ndarray, high: np.ndarray, settings) -> np.ndarray:
+    """Units saturated on at least ``near_binary_share`` with the rarer side on at least
+    ``near_binary_minority``: they switch between the asymptotes like binary units."""
+    with np.errstate(invalid="ignore"):
+        return ((low + high >= settings.near_binary_share)
+                & (np.fmin(low, high) >= settings.near_binary_minority))
+
+
 @unit_check("saturated", rank=2, kinds=SQUASHING_KINDS, critical_by_share=True,
-            cause="the total input sits beyond the saturation edge on one side for almost every "
-                  "sample: weights or bias grew too large (a high learning rate, no weight "
-                  "decay), an initialisation scale too large, or unstandardised inputs",
-            remedy=SATURATION_REMEDY)
+            label_column="saturation_side", cause=SATURATION_CAUSE, remedy=SATURATION_REMEDY,
+            advise=saturation_advice)
 def saturated(unit: UnitInput) -> UnitVerdict | None:
+    """Saturated on either side, the two sides together at ``saturated_share`` (a unit 94.5% at
+    one asymptote and 3.3% at the other passes as little gradient as one 97.8% at one), unless
+    the rarer side is large enough for the unit to be near-binary."""
     shares = _shares(unit)
     if shares is None:
         return None
     low, high = shares
-    side = np.fmax(low, high)
+    both = low + high
     limit = unit.settings.saturated_share
-    mask = side >= limit
-    lows = int(np.sum(mask & (low >= high)))
+    with np.errstate(invalid="ignore"):
+        mask = (both >= limit) & ~_binary_mask(low, high, unit.settings)
+        labels = np.where(low >= limit, "low", np.where(high >= limit, "high", "both"))
+    labels = np.where(mask, labels, "")
+    lows, highs = int(np.sum(labels == "low")), int(np.sum(labels == "high"))
+    split = int(mask.sum()) - lows - highs
     return UnitVerdict(
-        mask=mask, values=side, threshold=limit,
-        phrase=(f"spend at least {limit:.0%} of observations saturated on one side "
-                f"({lows} at the low asymptote, {int(mask.sum()) - lows} at the high one)"))
+        mask=mask, values=both, threshold=limit, labels=labels,
+        phrase=(f"spend at least {limit:.0%} of observations in the saturated zone ({lows} at "
+                f"the low asymptote, {highs} at the high one, {split} split across both sides)"))
 
 
 @unit_check("near_binary", rank=3, kinds=SQUASHING_KINDS | {ActivationKind.STOCHASTIC_BINARY},
@@ -60,11 +98,10 @@ def near_binary(unit: UnitInput) -> UnitVerdict | None:
     if shares is None:
         return None
     low, high = shares
-    both = low + high
     settings = unit.settings
-    mask = (both >= settings.near_binary_share) & (np.fmin(low, high) >= settings.near_binary_minority)
     return UnitVerdict(
-        mask=mask, values=both, threshold=settings.near_binary_share,
+        mask=_binary_mask(low, high, settings), values=low + high,
+        threshold=settings.near_binary_share,
         phrase=(f"are saturated on at least {settings.near_binary_share:.0%} of observations, "
                 f"the rarer side on at least {settings.near_binary_minority:.0%}: they act as "
                 f"binary threshold units"))
@@ -88,3 +125,37 @@ def linear_regime(unit: UnitInput) -> UnitVerdict | None:
         phrase=("never let their total input leave the near-linear zone" if limit >= 1.0 else
                 f"keep their total input inside the near-linear zone on at least {limit:.0%} "
                 f"of observations"))
+
+
+@layer_check("saturated_layer", kinds=SQUASHING_KINDS,
+             cause="most of the layer's total inputs, pooled over units and samples, lie in the "
+                   "saturated zone, so the layer passes little gradient back whichever units hold "
+                   "them (Glorot & Bengio 2010 saw logistic layers saturate this way): weights "
+                   "too large for the inputs, or unstandardised inputs",
+             remedy=SATURATION_REMEDY)
+def saturated_layer(layer: LayerInput) -> LayerVerdict | None:
+    """The pooled share of saturated observations, or the layer's gradient gain, past a limit.
+
+    A unit check can miss a layer whose units are each saturated on, say, 90% of samples; the
+    gradient through the layer is still cut to a few percent. Critical when both hold.
+    """
+    stats, settings = layer.stats, layer.settings
+    if stats is None or stats.low is None:
+        return None
+    observations = float(stats.moments.count.sum())
+    if observations == 0:
+        return None
+    pooled = float(stats.low.sum() + stats.high.sum()) / observations
+    gain = layer.gradient_gain
+    many = pooled >= settings.layer_saturated_share
+    weak = gain is not None and gain < settings.low_gradient_gain
+    if not (many or weak):
+        return None
+    gain_text = "not measured" if gain is None else f"{gain:.3g} of its peak"
+    remedy = TANH_SATURATION_REMEDY if layer.info.kind is ActivationKind.TANH else None
+    return LayerVerdict(
+        pooled, settings.layer_saturated_share,
+        f"{pooled:.1%} of all total inputs (units x observations) lie in the saturated zone "
+        f"(limit {settings.layer_saturated_share:.0%}); the mean gradient gain f'(z) is "
+        f"{gain_text} (limit {settings.low_gradient_gain:g})",
+        severity=Severity.CRITICAL if many and weak else Severity.WARNING, remedy=remedy)
