@@ -110,7 +110,10 @@ def test_registry_finds_every_check_in_exclusivity_order():
     assert set(names) == {"non_finite", "dead", "dormant", "saturated", "near_binary",
                           "linear_regime", "constant", "vanishing_signal", "exploding_signal",
                           "init_scale", "rarely_fires", "zero_weights", "duplicate",
-                          "in_place_record"}
+                          "in_place_record", "saturated_layer", "gradient_flow", "probe_size",
+                          "probe_scale", "probe_nonfinite"}
+    scopes = [c.scope for c in all_checks()]
+    assert scopes == sorted(scopes, key=("unit", "layer", "probe").index)
     ranked = [c.name for c in all_checks() if c.rank is not None]
     assert ranked == ["dead", "dormant", "saturated", "near_binary", "linear_regime",
                       "constant"]

@@ -13,7 +13,7 @@ import pytest
 
 from actdoc.analysis import analyze
 from actdoc.io import dump_from_arrays, open_dump
-from actdoc.model import Severity
+from actdoc.model import PROBE_LAYER, Severity
 from demo_models import DEMOS, DUMPS_DIR, bundled_dumps
 from demo_models.generate import DATA_SEED, PROBE_ROWS, TRAIN_ROWS, tanh_raw_inputs, write_all
 from demo_models.scenario import make_split
@@ -48,7 +48,11 @@ def test_demo_table_names_exactly_the_committed_files():
 
 def test_healthy_baseline_has_no_warning_and_almost_no_dead_units(findings):
     found = findings["healthy_baseline"]
-    assert all(f.severity == Severity.INFO for f in found.findings)
+    # every demo is recorded on 512 probe rows, fewer than the 1000 docs/checks.md asks for
+    # (n p >= 10 at the 1% dormant limit): the probe's own size finding is the only warning
+    assert all(f.severity == Severity.INFO for f in found.findings if f.layer != PROBE_LAYER)
+    assert [(f.check, f.severity) for f in found.findings if f.layer == PROBE_LAYER] == \
+        [("probe_size", Severity.WARNING)]
     for report in found.layers:
         assert report.fractions.get("dead", 0.0) < 0.05
         assert str(report.status) == "healthy"

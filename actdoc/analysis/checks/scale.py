@@ -171,8 +171,9 @@ def init_scale(layer: LayerInput) -> LayerVerdict | None:
         listed = ", ".join(f"{share:.0%} {check}" for check, share in signs.items())
         tail = f"; the layer's units show it ({listed})"
     else:
-        tail = ("; nothing else on this layer points to a problem, and trained weights drift "
-                "from their initial scale, so this is for information")
+        shows = "saturated, near-binary or dead units" if large else "units in the linear regime"
+        tail = (f"; no unit on this layer shows what such a scale does ({shows}), and trained "
+                f"weights drift from their initial scale, so this is for information")
     return LayerVerdict(ratio, limit, (
         f"incoming weight std {weights.std:.3g} is {ratio:.3g} times the {weights.reference} "
         f"reference {weights.reference_std:.3g}, {direction} the factor {factor:g}{tail}"),

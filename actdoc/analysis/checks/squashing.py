@@ -45,6 +45,29 @@ def saturation_advice(kind: ActivationKind) -> tuple[str, str] | None:
     return None
 
 
+def saturation_cause(context, index: int, settings) -> str | None:
+    """The saturation cause the data points to: unstandardised inputs for the first layer when
+    the probe shows them; the bias when the layer's weights are not large; else None (the
+    registered text)."""
+    probe = context.probe
+    if index == 0 and probe is not None and probe.stored and probe.features:
+        varies = probe.feature_std > 0
+        rms = np.sqrt(probe.feature_mean ** 2 + probe.feature_std ** 2)[varies]
+        if rms.size and float(rms.max()) > settings.input_scale_limit:
+            return (f"the inputs are not standardised (input feature RMS up to "
+                    f"{float(rms.max()):.3g}, see the probe_scale finding): total inputs of the "
+                    f"first layer are as large as the raw feature values make them")
+    ratios = context.weight_ratios
+    ratio = ratios[index] if index < len(ratios) else None
+    if ratio is None or ratio > 1.0:
+        return None
+    return (f"the incoming weights are not large ({ratio:.3g} times the reference scale for the "
+            f"kind), so the bias (or the mean of the inputs) pushes the total input past the "
+            f"saturation edge: Glorot & Bengio 2010 (Figure 2) saw the top logistic layer of a "
+            f"deep net driven to 0 this way early in training, while the layers below still "
+            f"gave it little to work with")
+
+
 def _shares(unit: UnitInput) -> tuple[np.ndarray, np.ndarray] | None:
     stats = unit.stats
     if stats.low is None:
@@ -81,6 +104,7 @@ def saturated(unit: UnitInput) -> UnitVerdict | None:
     split = int(mask.sum()) - lows - highs
     return UnitVerdict(
         mask=mask, values=both, threshold=limit, labels=labels,
+        cause=saturation_cause(unit.context, unit.info.index, unit.settings),
         phrase=(f"spend at least {limit:.0%} of observations in the saturated zone ({lows} at "
                 f"the low asymptote, {highs} at the high one, {split} split across both sides)"))
 
@@ -158,4 +182,5 @@ def saturated_layer(layer: LayerInput) -> LayerVerdict | None:
         f"{pooled:.1%} of all total inputs (units x observations) lie in the saturated zone "
         f"(limit {settings.layer_saturated_share:.0%}); the mean gradient gain f'(z) is "
         f"{gain_text} (limit {settings.low_gradient_gain:g})",
-        severity=Severity.CRITICAL if many and weak else Severity.WARNING, remedy=remedy)
+        severity=Severity.CRITICAL if many and weak else Severity.WARNING, remedy=remedy,
+        cause=saturation_cause(layer.context, layer.info.index, settings))
