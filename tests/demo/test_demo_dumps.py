@@ -97,6 +97,19 @@ def test_grown_logistic_weights_make_near_binary_units(findings):
 def test_raw_inputs_saturate_tanh_units_where_standardised_inputs_do_not(findings):
     found = findings["tanh_raw_inputs"]
     assert share(found, "hidden1", "saturated") >= 0.5
+    # the layer as a whole: nearly every total input past the edge, the gain near zero
+    # (docs/checks.md: critical when both limits are passed)
+    (layer,) = [f for f in found.for_layer("hidden1") if f.check == "saturated_layer"]
+    assert layer.severity == Severity.CRITICAL and layer.measure > 0.9
+    # the probe input shows why: pressure in pascals, sunlight in lux (feature std up to 3e4)
+    (scale,) = [f for f in found.findings if f.check == "probe_scale"]
+    assert scale.severity == Severity.WARNING and found.probe.feature_std.max() > 1e4
+    sat = [f for f in found.for_layer("hidden1") if f.check == "saturated"][0]
+    assert "not standardised" in sat.cause
+    # every other demo standardises its inputs: no probe_scale finding there
+    for name, other in findings.items():
+        if name != "tanh_raw_inputs":
+            assert not [f for f in other.findings if f.check == "probe_scale"], name
     # Control: the same recipe on standardised inputs leaves the first layer usable.
     standardised = make_split(TRAIN_ROWS, PROBE_ROWS, DATA_SEED, standardise=True)
     control = tanh_raw_inputs(standardised)[0]
