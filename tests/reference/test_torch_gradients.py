@@ -159,3 +159,21 @@ def test_grad_must_have_the_shape_of_preact(tmp_path):
         dump_from_arrays({"a": {"activation": "tanh", "preact": z, "grad": z[:, :2]}})
     with pytest.raises(InvalidDump, match="a gradient needs the layer's preact or output"):
         dump_from_arrays({"a": {"activation": "tanh", "grad": z, "weight": np.ones((3, 2))}})
+
+
+def test_streamed_gradients_round_trip(glorot_logistic, tmp_path):
+    # DumpWriter.append in blocks, as a capture loop would, against the torch tensors
+    from actdoc.io.writer import DumpWriter
+
+    layers, _ = glorot_logistic
+    spec = layers["layer1"]
+    with DumpWriter(tmp_path / "streamed.h5") as out:
+        out.add_layer("layer1", "logistic", units=WIDTH)
+        for start in range(0, SAMPLES, 500):
+            rows = slice(start, start + 500)
+            out.append("layer1", preact=spec["preact"][rows], output=spec["output"][rows],
+                       grad=spec["grad"][rows])
+    with open_dump(tmp_path / "streamed.h5") as dump:
+        layer = dump.layer("layer1")
+        read = np.concatenate([g.copy() for g in layer.blocks("grad", 256)])
+    np.testing.assert_array_equal(read, spec["grad"])

@@ -63,8 +63,10 @@ def test_json_document_has_the_interface_fields(findings):
         assert isinstance(layer[key], kind), key
     assert layer["status"] in ("healthy", "warning", "critical")
     entry = doc["findings"][0]
+    # the contract's keys, plus the one extension docs/findings.md documents for a finding
     assert set(entry) == {"check", "severity", "layer", "units", "measure", "threshold",
-                          "summary", "cause", "remedy"}
+                          "summary", "cause", "remedy", "related"}
+    assert entry["related"] == []
     assert entry["units"] == [0, 2]
     # NaN has no JSON spelling: it must come out as null, not as a bare NaN token.
     assert doc["layers"][0]["gradient_gain"] is None
