@@ -167,3 +167,25 @@ def test_the_engine_names_no_check():
     source = inspect.getsource(engine) + inspect.getsource(verdicts)
     for name in REGISTRY:
         assert f'"{name}"' not in source and f"'{name}'" not in source, name
+
+
+def test_probe_report_and_related_findings_survive_the_archive(tmp_path):
+    # the dashboard caches a whole Findings object (actdoc.reports.archive); the new fields
+    # must come back as they were
+    from actdoc.reports.archive import load_findings, save_findings
+
+    rng = np.random.default_rng(6)
+    x = rng.normal(0, 50, size=(300, 5))
+    x[3, 2] = np.nan
+    z = np.nan_to_num(x) @ rng.normal(size=(5, 4))
+    z[:, 0] = -1e3
+    found = analyze(dump_from_arrays({"r": {"activation": "relu", "preact": z}},
+                                     probe_input=x))
+    save_findings(found, tmp_path / "cache")
+    back = load_findings(tmp_path / "cache")
+    assert [(f.check, f.layer, f.related) for f in back.findings] == \
+        [(f.check, f.layer, f.related) for f in found.findings]
+    assert back.probe.nonfinite_rows == 1 and back.probe.samples == 300
+    np.testing.assert_array_equal(back.probe.feature_std, found.probe.feature_std)
+    assert {f.check for f in found.findings if f.layer == "probe/input"} == \
+        {"probe_size", "probe_scale", "probe_nonfinite"}
