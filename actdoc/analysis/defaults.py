@@ -76,8 +76,8 @@ TABLE: tuple[SettingRow, ...] = (
                "a unit that fires on under 1% of inputs carries almost no information",
                "common practice", 0.0, 1.0),
     SettingRow("saturated_share", 0.95,
-               "a logistic or tanh unit with at least this share of observations saturated on "
-               "one side is saturated",
+               "a logistic or tanh unit with at least this share of observations saturated "
+               "(both sides together; near-binary units excepted) is saturated",
                "leaves at most 5% of inputs where the unit can pass a useful gradient",
                "common practice", 0.0, 1.0),
     SettingRow("near_binary_share", 0.95,
@@ -206,7 +206,7 @@ class Settings:
     dormant_active_share: float = _default("dormant_active_share")
     """Active share below which a rectified unit is dormant."""
     saturated_share: float = _default("saturated_share")
-    """Share of observations saturated on one side that makes a unit saturated."""
+    """Share of observations saturated (both sides together) that makes a unit saturated."""
     near_binary_share: float = _default("near_binary_share")
     """Share of observations saturated on either side needed for a near-binary unit."""
     near_binary_minority: float = _default("near_binary_minority")
@@ -219,6 +219,16 @@ class Settings:
     """Factor of the first layer's output RMS beyond which a signal vanishes or explodes."""
     init_scale_factor: float = _default("init_scale_factor")
     """Factor around the He or Glorot weight scale outside which init_scale flags a layer."""
+    layer_saturated_share: float = _default("layer_saturated_share")
+    """Pooled share of a logistic or tanh layer's observations saturated for a layer finding."""
+    low_gradient_gain: float = _default("low_gradient_gain")
+    """Mean f'(z) over its peak below which a logistic or tanh layer gets a layer finding."""
+    gradient_limit: float = _default("gradient_limit")
+    """Factor of the last layer's gradient RMS beyond which a gradient vanishes or explodes."""
+    input_scale_limit: float = _default("input_scale_limit")
+    """RMS of a varying probe input feature above which (or below its inverse) it is flagged."""
+    probe_expected_firings: float = _default("probe_expected_firings")
+    """Firings expected on the probe of a unit at the dormant limit (sets the probe size)."""
     critical_share: float = _default("critical_share")
     """Share of a layer's units at which a dead, saturated or near-binary finding is critical."""
     warning_share: float = _default("warning_share")
