@@ -80,6 +80,12 @@ def test_deep_logistic_saturates_its_top_hidden_layer_only(findings):
     assert share(found, "hidden4", "saturated") >= 0.9
     top_means = found.layer("hidden4").unit_table["mean"]
     assert np.all(top_means < 0.01)  # pinned at 0, as in Glorot & Bengio 2010, Figure 2
+    # the top layer's weights are small (0.16x the logistic's reference): the cause named is
+    # the bias, as Glorot & Bengio 2010 describe, and larger weights are not the advice
+    (sat,) = [f for f in found.for_layer("hidden4") if f.check == "saturated"]
+    assert "weights are not large" in sat.cause and "larger weights will not help" in sat.remedy
+    (vanish,) = [f for f in found.for_layer("hidden4") if f.check == "vanishing_signal"]
+    assert "saturated" in vanish.cause and "saturated" in vanish.related
     for name in ("hidden1", "hidden2", "hidden3"):
         assert share(found, name, "saturated") == 0.0
         assert float(np.mean(found.layer(name).unit_table["mean"])) > 0.4

@@ -101,7 +101,8 @@ def _vanishing_story(layer: LayerInput) -> tuple[str | None, str | None]:
         return (f"{pinned:.0%} of this layer's units are saturated (see that finding): their "
                 f"outputs sit at an asymptote for every sample, so the layer's output scale is "
                 f"that of the asymptote, whatever the weights",
-                None)
+                "treat the saturated units (see the saturated finding); the scale recovers "
+                "with them")
     predicted = predicted_rms_ratio(layer)
     if (predicted is not None and predicted >= 1.0 / settings.signal_limit
             and layer.info.kind in RECTIFIED_KINDS):

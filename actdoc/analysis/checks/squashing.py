@@ -20,22 +20,30 @@ from actdoc.analysis.checks import (
 )
 from actdoc.model import SQUASHING_KINDS, ActivationKind, Severity
 
-SATURATION_REMEDY = (
-    "standardise the inputs; initialise with Glorot & Bengio 2010 (std sqrt(2/(fan_in + "
-    "fan_out))); lower the learning rate; add weight decay against weight growth; add a "
-    "normalisation layer before the activation (Ioffe & Szegedy 2015); or switch the hidden "
-    "layer to tanh (zero-centred) or a rectified kind")
-TANH_SATURATION_REMEDY = (
-    "standardise the inputs; initialise with Glorot & Bengio 2010 (std sqrt(2/(fan_in + "
-    "fan_out))); lower the learning rate; add weight decay against weight growth; add a "
-    "normalisation layer before the activation (Ioffe & Szegedy 2015); or switch the hidden "
-    "layer to a rectified kind")
+
+def _saturation_remedy(init: str, switch: str) -> str:
+    return ("standardise the inputs; " + init + "; lower the learning rate; add weight decay "
+            "against weight growth; add a normalisation layer before the activation (Ioffe & "
+            "Szegedy 2015); or switch the hidden layer to " + switch)
 
 
+SATURATION_REMEDY = _saturation_remedy(
+    "initialise logistic layers at 4 times the Glorot & Bengio 2010 scale (std 4 sqrt(2/(fan_in "
+    "+ fan_out)); the logistic's slope at 0 is 1/4), not above it",
+    "tanh (zero-centred) or a rectified kind")
+TANH_SATURATION_REMEDY = _saturation_remedy(
+    "initialise with Glorot & Bengio 2010 (std sqrt(2/(fan_in + fan_out)))", "a rectified kind")
 SATURATION_CAUSE = (
     "the total input sits beyond the saturation edge for almost every sample: weights or bias "
     "grew too large (a high learning rate, no weight decay), an initialisation scale too large, "
     "or unstandardised inputs")
+INPUT_REMEDY = ("standardise each input feature with the training set's mean and standard "
+                "deviation (and the probe batch the same way); the first layer's weights can "
+                "then stay at their reference scale")
+BIAS_REMEDY = ("lower the learning rate; normalisation layers (Ioffe & Szegedy 2015) keep the "
+               "bias from having to push that far; larger weights will not help")
+LOGISTIC_BIAS_REMEDY = BIAS_REMEDY + ("; a zero-centred hidden activation (tanh) saturates less "
+                                      "at the top of a deep net (Glorot & Bengio 2010)")
 
 
 def saturation_advice(kind: ActivationKind) -> tuple[str, str] | None:
@@ -45,10 +53,11 @@ def saturation_advice(kind: ActivationKind) -> tuple[str, str] | None:
     return None
 
 
-def saturation_cause(context, index: int, settings) -> str | None:
-    """The saturation cause the data points to: unstandardised inputs for the first layer when
-    the probe shows them; the bias when the layer's weights are not large; else None (the
-    registered text)."""
+def saturation_story(context, info, settings) -> tuple[str | None, str | None]:
+    """The saturation cause (and remedy) the data points to: unstandardised inputs for the
+    first layer when the probe shows them; the bias when the layer's weights are not large;
+    else (None, None): the registered text."""
+    index = info.index
     probe = context.probe
     if index == 0 and probe is not None and probe.stored and probe.features:
         varies = probe.feature_std > 0
@@ -56,16 +65,18 @@ def saturation_cause(context, index: int, settings) -> str | None:
         if rms.size and float(rms.max()) > settings.input_scale_limit:
             return (f"the inputs are not standardised (input feature RMS up to "
                     f"{float(rms.max()):.3g}, see the probe_scale finding): total inputs of the "
-                    f"first layer are as large as the raw feature values make them")
+                    f"first layer are as large as the raw feature values make them",
+                    INPUT_REMEDY)
     ratios = context.weight_ratios
     ratio = ratios[index] if index < len(ratios) else None
     if ratio is None or ratio > 1.0:
-        return None
+        return None, None
     return (f"the incoming weights are not large ({ratio:.3g} times the reference scale for the "
             f"kind), so the bias (or the mean of the inputs) pushes the total input past the "
             f"saturation edge: Glorot & Bengio 2010 (Figure 2) saw the top logistic layer of a "
             f"deep net driven to 0 this way early in training, while the layers below still "
-            f"gave it little to work with")
+            f"gave it little to work with",
+            BIAS_REMEDY if info.kind is ActivationKind.TANH else LOGISTIC_BIAS_REMEDY)
 
 
 def _shares(unit: UnitInput) -> tuple[np.ndarray, np.ndarray] | None:
@@ -102,9 +113,9 @@ def saturated(unit: UnitInput) -> UnitVerdict | None:
     labels = np.where(mask, labels, "")
     lows, highs = int(np.sum(labels == "low")), int(np.sum(labels == "high"))
     split = int(mask.sum()) - lows - highs
+    cause, remedy = saturation_story(unit.context, unit.info, unit.settings)
     return UnitVerdict(
-        mask=mask, values=both, threshold=limit, labels=labels,
-        cause=saturation_cause(unit.context, unit.info.index, unit.settings),
+        mask=mask, values=both, threshold=limit, labels=labels, cause=cause, remedy=remedy,
         phrase=(f"spend at least {limit:.0%} of observations in the saturated zone ({lows} at "
                 f"the low asymptote, {highs} at the high one, {split} split across both sides)"))
 
@@ -135,8 +146,9 @@ def near_binary(unit: UnitInput) -> UnitVerdict | None:
             cause="the total input stays within the near-linear zone around zero: weights and "
                   "inputs so small that the nonlinearity is never used (an initialisation scale "
                   "far too small, or inputs scaled down)",
-            remedy="initialise at the Glorot & Bengio 2010 scale; check the input scaling; if the "
-                   "layer is meant to be linear, a linear layer is cheaper and says so")
+            remedy="initialise at the Glorot & Bengio 2010 scale (4 times it for the logistic, "
+                   "whose slope at 0 is 1/4); check the input scaling; if the layer is meant to "
+                   "be linear, a linear layer is cheaper and says so")
 def linear_regime(unit: UnitInput) -> UnitVerdict | None:
     stats = unit.stats
     if stats.linear is None:
@@ -176,11 +188,13 @@ def saturated_layer(layer: LayerInput) -> LayerVerdict | None:
     if not (many or weak):
         return None
     gain_text = "not measured" if gain is None else f"{gain:.3g} of its peak"
-    remedy = TANH_SATURATION_REMEDY if layer.info.kind is ActivationKind.TANH else None
+    cause, remedy = saturation_story(layer.context, layer.info, settings)
+    if remedy is None and layer.info.kind is ActivationKind.TANH:
+        remedy = TANH_SATURATION_REMEDY
     return LayerVerdict(
         pooled, settings.layer_saturated_share,
         f"{pooled:.1%} of all total inputs (units x observations) lie in the saturated zone "
         f"(limit {settings.layer_saturated_share:.0%}); the mean gradient gain f'(z) is "
         f"{gain_text} (limit {settings.low_gradient_gain:g})",
         severity=Severity.CRITICAL if many and weak else Severity.WARNING, remedy=remedy,
-        cause=saturation_cause(layer.context, layer.info.index, settings))
+        cause=cause)
