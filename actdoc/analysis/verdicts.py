@@ -10,6 +10,8 @@ data beyond its own layer. Findings that name the same layer list each other as 
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from actdoc.analysis.checks import (
@@ -137,8 +139,6 @@ def _probe_findings(probe: ProbeInput, checks: list[Check]) -> list[Finding]:
 
 def _related(findings: list[Finding]) -> list[Finding]:
     """Each finding with the other checks that named the same layer."""
-    from dataclasses import replace
-
     checks = [f.check for f in findings]
     return [replace(f, related=tuple(c for c in checks if c != f.check)) if len(checks) > 1
             else f for f in findings]

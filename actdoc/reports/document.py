@@ -68,8 +68,8 @@ def probe_entry(probe: ProbeReport | None) -> dict[str, Any] | None:
 
 def to_document(findings: Findings) -> dict[str, Any]:
     """The findings document exactly as docs/contract.md section 4 fixes it, plus extensions
-    (``caveat``, ``verdict``, ``settings``, ``probe``, per-finding ``related``, and per-layer ``output_scale``, ``gradient_gain``,
-    ``activation_note``)."""
+    (``caveat``, ``verdict``, ``settings``, ``probe``, per-finding ``related``, and per-layer
+    ``output_scale``, ``gradient_gain``, ``activation_note``)."""
     source = findings.source
     return {
         "schema": SCHEMA,
