@@ -35,7 +35,7 @@ LOOKS: dict[str, Look] = {
     "dormant": Look("dormant", "#b4531a", "triangle-down", "▼",
                     "share of observations where it is active", True),
     "saturated": Look("saturated", "#8a6100", "square", "■",
-                      "share of observations saturated on its busier side", True),
+                      "share of observations saturated (both sides together)", True),
     "near_binary": Look("near binary (two-valued)", "#6d3fa8", "diamond", "◆",
                         "share of observations saturated on either side", True),
     "linear_regime": Look("stuck in the near-linear zone", "#2f58b0", "triangle-up", "▲",
@@ -47,6 +47,11 @@ LOOKS: dict[str, Look] = {
     "init_scale": Look("initial weight scale", "#2f7d54", "pentagon", "⬟"),
     "vanishing_signal": Look("signal fading with depth", "#4b5563", "hexagon", "⬢"),
     "exploding_signal": Look("signal growing with depth", "#9f1239", "star", "★"),
+    "saturated_layer": Look("layer mostly saturated", "#7a5200", "square-open", "□"),
+    "gradient_flow": Look("gradient fading with depth", "#1e40af", "circle-open", "○"),
+    "probe_size": Look("probe batch too small", "#0f6674", "diamond-open", "◇"),
+    "probe_scale": Look("inputs not standardised", "#7c4a03", "triangle-up-open", "△"),
+    "probe_nonfinite": Look("probe rows hold NaN", "#111111", "asterisk-open", "✳"),
 }
 
 #: Looks handed to checks the table does not name, chosen by a stable hash of the id.
@@ -54,7 +59,7 @@ FALLBACKS = (
     Look("", "#0f6674", "cross", "✚"),
     Look("", "#7c4a03", "hourglass", "⧗"),
     Look("", "#5b3f8c", "bowtie", "⋈"),
-    Look("", "#3f6212", "star-square", "⯀"),
+    Look("", "#3f6212", "star-square", "▣"),
 )
 
 

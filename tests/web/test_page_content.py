@@ -101,7 +101,7 @@ def test_this_units_number_says_what_it_is(client, planted):
     html = client.get(f"/dumps/{planted}/layers/1/units/{SATURATED_UNITS[0]}").get_data(
         as_text=True)
     assert "this unit: " not in html
-    assert "this unit's share of observations saturated on its busier side: 100.0%" in html
+    assert "this unit's share of observations saturated (both sides together): 100.0%" in html
     assert "(limit 95.0%)" in html
 
 
