@@ -2,6 +2,23 @@
 (function () {
   "use strict";
 
+  /* Nothing leaves this machine: no "Share chart" (it posts the figure to a cloud service), no
+     edit-in-the-cloud link, no logo link, no server address to post to. The PNG download stays:
+     it is made in the browser. */
+  var CHART_CONFIG = {
+    responsive: true,
+    displaylogo: false,
+    showSendToCloud: false,
+    showEditInChartStudio: false,
+    showLink: false,
+    linkText: "",
+    plotlyServerURL: "",
+    showTips: false,
+    modeBarButtonsToRemove: ["sendChartToCloud", "sendDataToCloud", "editInChartStudio",
+                             "select2d", "lasso2d"],
+    toImageButtonOptions: { format: "png" }
+  };
+
   /* Figures travel as JSON in <script type="application/json"> blocks; draw each one. */
   function drawCharts() {
     if (typeof Plotly === "undefined") return;
@@ -9,8 +26,7 @@
       var source = document.getElementById(el.dataset.figure);
       if (!source) return;
       var figure = JSON.parse(source.textContent);
-      Plotly.newPlot(el, figure.data, figure.layout,
-        { responsive: true, displaylogo: false, modeBarButtonsToRemove: ["select2d", "lasso2d"] });
+      Plotly.newPlot(el, figure.data, figure.layout, CHART_CONFIG);
       if (el.dataset.unitUrl) {
         el.on("plotly_click", function (event) {
           var point = event.points && event.points[0];

@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import re
-
 from flask import Blueprint, Response, current_app, jsonify, request, url_for
 from werkzeug.exceptions import BadRequest, NotFound
 
 from actdoc.reports import MEDIA_TYPES, render
+from actdoc.web.headers import attachment
 from actdoc.workspace import DumpRecord, UploadSpool
 
 blueprint = Blueprint("api", __name__, url_prefix="/api")
@@ -81,9 +80,8 @@ def findings(dump_id: str, ending: str):
     response = Response(render(workspace.findings(dump_id), fmt), mimetype=None,
                         content_type=MEDIA_TYPES[fmt])
     if request.args.get("download"):
-        stem = re.sub(r"[^\w.-]", "_", record.name.rsplit(".", 1)[0]) or "dump"
-        response.headers["Content-Disposition"] = (
-            f'attachment; filename="{stem}-findings.{ending}"')
+        stem = record.name.rsplit(".", 1)[0] or "dump"
+        response.headers["Content-Disposition"] = attachment(f"{stem}-findings.{ending}")
     return response
 
 

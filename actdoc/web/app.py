@@ -11,6 +11,8 @@ from werkzeug.exceptions import Forbidden, Unauthorized
 
 import actdoc
 from actdoc.web import api, assets, errors, pages, views
+from actdoc.web.describe import describe
+from actdoc.web.headers import add_security_headers
 from actdoc.formatting import number, percent
 from actdoc.web.embed import embed_json, first_sentence
 from actdoc.confine import JobLimits
@@ -83,11 +85,13 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
     app.extensions["actdoc"] = State(workspace, demo)
 
     app.jinja_env.filters.update(embed_json=embed_json, first_sentence=first_sentence,
-                                  number=number, percent=percent)
+                                  number=number, percent=percent, describe=describe)
     app.jinja_env.globals.update(app_version=actdoc.__version__,
-                                 weights_only_note=views.WEIGHTS_ONLY_NOTE)
+                                 weights_only_note=views.WEIGHTS_ONLY_NOTE,
+                                 asset_url=assets.asset_url)
     app.before_request(guard)
     app.after_request(remember_token)
+    app.after_request(add_security_headers)
     app.teardown_request(discard_unused_spools)
     for blueprint in (pages.blueprint, api.blueprint, assets.blueprint):
         app.register_blueprint(blueprint)
@@ -96,6 +100,7 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
     if demo:
         app.extensions["actdoc"].demo_files = add_demo_dumps(workspace)
     workspace.start()
+    assets.warm_plotly()
     return app
 
 

@@ -26,7 +26,7 @@ def test_overview_shows_layers_charts_findings_downloads_and_the_caveat(client, 
     html = client.get(f"/dumps/{ready_dump}").get_data(as_text=True)
     for part in ("hidden1", "hidden2", "readout", "findings.csv", "findings.md",
                  "findings.json", 'id="figure-depth"', 'id="figure-signal"',
-                 "/assets/plotly.min.js", "Read with care"):
+                 "/plotly.min.js", "Read with care"):
         assert part in html, part
     assert CAVEAT.split(":")[0] in html
     twin = client.get(f"/dumps/{ready_dump}?format=json").get_json()
