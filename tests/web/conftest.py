@@ -1,12 +1,11 @@
 """Fixtures for the dashboard tests, in the style of Flask's tutorial: app, client, workspace.
 
-The planted model and the HTTP helpers live in tests/support/web.py.
+The planted model and the HTTP helpers live in tests/support/web.py, the browser harness in
+tests/support/browser.py.
 """
 
 from __future__ import annotations
 
-import os
-import shutil
 from pathlib import Path
 
 import h5py
@@ -15,6 +14,7 @@ import pytest
 
 from actdoc.io.writer import write_dump
 from actdoc.web import create_app
+from tests.support.browser import launched_chromium, serve_in_thread
 from tests.support.web import TEST_UPLOAD_LIMIT, planted_layers, post_file, wait_until_done
 
 
@@ -73,33 +73,19 @@ def ready_dump(client, planted_dump) -> str:
     return body["id"]
 
 
-#: Debian's chromium, headless, with nothing that would reach the network on its own.
-CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-                 "--no-first-run", "--disable-background-networking",
-                 "--disable-component-update", "--disable-sync"]
-
-
-def no_browser(reason: str):
-    if os.environ.get("CI"):
-        pytest.fail(f"browser tests need chromium in CI: {reason}")
-    pytest.skip(reason)
+@pytest.fixture(scope="session")
+def browser():
+    """One headless chromium for every browser test of the session (Playwright's sync API
+    allows one running instance per process; skips, or fails in CI, without one)."""
+    with launched_chromium() as launched:
+        yield launched
 
 
 @pytest.fixture(scope="session")
-def browser():
-    """One headless Chromium for every browser test of the session (Playwright's sync API
-    allows one running instance per process)."""
-    executable = shutil.which("chromium")
-    if executable is None:
-        no_browser("no 'chromium' on PATH (Debian: apt-get install chromium)")
-    from playwright.sync_api import Error, sync_playwright
-
-    with sync_playwright() as playwright:
-        try:
-            launched = playwright.chromium.launch(executable_path=executable, args=CHROMIUM_ARGS)
-        except Error as error:
-            no_browser(f"chromium did not start: {error.message.splitlines()[0]}")
-        yield launched
-        launched.close()
-
-
+def demo_url(tmp_path_factory):
+    """The dashboard in demo mode, every bundled dump analysed, served on loopback."""
+    app = create_app(tmp_path_factory.mktemp("demo-workspace"), demo=True)
+    client = app.test_client()
+    for dump in client.get("/api/dumps").get_json():
+        assert wait_until_done(client, dump["id"])["status"] == "ready", dump["name"]
+    yield from serve_in_thread(app)

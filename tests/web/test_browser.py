@@ -9,50 +9,20 @@ ACTDOC_UPDATE_SCREENSHOTS=1 the README's image, docs/img/overview.png, is writte
 from __future__ import annotations
 
 import os
-import threading
-from pathlib import Path
 
 import pytest
 
 from actdoc.web import create_app
-from tests.support.web import wait_until_done
+from tests.support.browser import REPO, serve_in_thread, shoot
 
 pytestmark = pytest.mark.browser
 
-REPO = Path(__file__).resolve().parents[2]
-ARTIFACTS = REPO / "tests" / "artifacts"
 DOCS_IMAGE = REPO / "docs" / "img" / "overview.png"
-
-
-def serve_in_thread(app):
-    """Serve ``app`` on a free loopback port; yields the base URL."""
-    import waitress
-
-    server = waitress.create_server(app, host="127.0.0.1", port=0, threads=4)
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{server.effective_port}"
-    server.close()
 
 
 @pytest.fixture(scope="module")
 def live_url(tmp_path_factory):
     yield from serve_in_thread(create_app(tmp_path_factory.mktemp("live-workspace")))
-
-
-@pytest.fixture(scope="module")
-def demo_url(tmp_path_factory):
-    """The dashboard in demo mode, every bundled dump analysed."""
-    app = create_app(tmp_path_factory.mktemp("demo-workspace"), demo=True)
-    client = app.test_client()
-    for dump in client.get("/api/dumps").get_json():
-        assert wait_until_done(client, dump["id"])["status"] == "ready", dump["name"]
-    yield from serve_in_thread(app)
-
-
-def shoot(page, name: str) -> None:
-    ARTIFACTS.mkdir(exist_ok=True)
-    page.screenshot(path=str(ARTIFACTS / f"web-{name}.png"), full_page=True)
 
 
 def roster_fits(page) -> bool:
