@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from actdoc.web.embed import number, plain
+from actdoc.formatting import number, plain
 
 #: Series beyond this many are counted, not described.
 MAX_SERIES = 6
