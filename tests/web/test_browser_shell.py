@@ -267,6 +267,7 @@ def test_keyboard_users_see_where_they_are(browser, demo_url, pages):
                 outline: getComputedStyle(el).outlineStyle}; }""")
     assert skip["text"] == "Skip to the content" and skip["href"] == "#main"
     assert skip["top"] >= 0 and skip["outline"] != "none"  # on screen once focused
+    page.screenshot(path=str(ARTIFACTS / "web-1440-focus-skip-link.png"))
     page.keyboard.press("Enter")
     assert page.evaluate("document.activeElement.id") == "main"
     page.focus("#file-input")
@@ -274,6 +275,7 @@ def test_keyboard_users_see_where_they_are(browser, demo_url, pages):
         const style = getComputedStyle(label);
         return {style: style.outlineStyle, width: parseFloat(style.outlineWidth)}; }""")
     assert label["style"] != "none" and label["width"] >= 2
+    page.screenshot(path=str(ARTIFACTS / "web-1440-focus-file-input.png"))
     page.keyboard.press("Tab")
     assert page.evaluate("getComputedStyle(document.activeElement).outlineStyle") != "none"
     context.close()
