@@ -301,3 +301,20 @@ def test_tables_name_their_headers_and_charts_say_what_they_show(browser, demo_u
     assert sorted_headers.get_attribute("aria-sort") == "descending"
     assert "mean" in sorted_headers.text_content()
     context.close()
+
+
+def test_no_page_of_the_dashboard_can_be_framed(browser, demo_url, pages):
+    """frame-ancestors 'none' (CSP Level 3) and X-Frame-Options: DENY (RFC 7034): a page of
+    another origin that frames the dashboard shows nothing of it (clickjacking, OWASP)."""
+    context = browser.new_context(viewport=WIDE)
+    page = context.new_page()
+    refused = []
+    page.on("console", lambda message: refused.append(message.text)
+            if "frame-ancestors" in message.text or "X-Frame-Options" in message.text else None)
+    page.set_content(f'<iframe id="victim" src="{demo_url}{pages["shelf"]}"></iframe>')
+    page.wait_for_timeout(1500)
+    victim = page.frame_locator("#victim")
+    assert "Shelf" not in " ".join(victim.locator("h1").all_text_contents())
+    assert [frame.url for frame in page.frames if frame.url.startswith(demo_url)] == []
+    assert refused, "chromium did not report refusing the frame"
+    context.close()
