@@ -109,6 +109,5 @@ window.__cspViolations = [];
 window.__opened = [];
 document.addEventListener('securitypolicyviolation', e =>
   window.__cspViolations.push(e.violatedDirective + ' ' + e.blockedURI));
-const realOpen = window.open;
 window.open = function (url) { window.__opened.push(String(url)); return null; };
 """
