@@ -5,7 +5,7 @@ later ones (plotly.js and our files in the cache).
     python -m benchmarks.page_load [--rounds 5]
 
 Each round opens a fresh browser context (empty cache), loads the demo Survey cold, then the
-Close-up, a Unit card, the Survey again and the Drift page warm. Prints per-page medians and a
+Close-up, a Unit card, the Survey again and the Compare page warm. Prints per-page medians and a
 JSON line. Targets (docs/dashboard.md): under 1 s cold, under 300 ms warm.
 """
 
@@ -49,7 +49,7 @@ def page_addresses(base: str) -> dict[str, str]:
     survey = dumps["logistic_deep_old_init.h5"]["page"]
     first, last = dumps["relu_dying_step1.h5"]["id"], dumps["relu_dying_step5.h5"]["id"]
     return {"survey": survey, "close-up": survey + "/layers/1",
-            "unit-card": survey + "/layers/1/units/3", "drift": f"/drift?dump={first}&dump={last}"}
+            "unit-card": survey + "/layers/1/units/3", "compare": f"/compare?dump={first}&dump={last}"}
 
 
 def drawn_ms(page, url: str) -> float:
@@ -76,7 +76,7 @@ def main(argv: list[str] | None = None) -> dict:
                 context = browser.new_context(viewport={"width": 1440, "height": 900})
                 page = context.new_page()
                 times["cold survey"].append(drawn_ms(page, base + pages["survey"]))
-                for kind in ("close-up", "unit-card", "survey", "drift"):
+                for kind in ("close-up", "unit-card", "survey", "compare"):
                     times.setdefault(f"warm {kind}", []).append(
                         drawn_ms(page, base + pages[kind]))
                 context.close()

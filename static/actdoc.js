@@ -196,7 +196,22 @@
     sort.addEventListener("change", update);
   }
 
+  /* A table wider than its box scrolls inside it: keyboard users must reach that box too
+     (WCAG 2.1 SC 2.1.1), so it takes the focus and is named after its panel's heading. */
+  function focusableScrollers() {
+    document.querySelectorAll(".scroll").forEach(function (box) {
+      if (box.scrollWidth <= box.clientWidth || box.hasAttribute("tabindex")) return;
+      var panel = box.closest("section, .panel");
+      var heading = panel && panel.querySelector("h2, h3");
+      box.tabIndex = 0;
+      box.setAttribute("role", "region");
+      box.setAttribute("aria-label", (heading ? heading.textContent.trim() : "table") +
+        " (scrolls sideways)");
+    });
+  }
+
   document.addEventListener("DOMContentLoaded", function () {
+    focusableScrollers();
     wireShelfTools();
     wireConfirms();
     wireDriftPicker();

@@ -72,7 +72,7 @@ def get_json(url: str):
 
 def page_types(base_url: str) -> dict[str, str]:
     """One address of each page type of a demo dashboard: Shelf, Survey, Close-up, Unit card,
-    Drift and an error page."""
+    Compare, the checks' help page and an error page."""
     dumps = {dump["name"]: dump for dump in get_json(base_url + "/api/dumps")}
     survey = dumps["logistic_deep_old_init.h5"]["page"]
     first, last = dumps["relu_dying_step1.h5"]["id"], dumps["relu_dying_step5.h5"]["id"]
@@ -81,7 +81,8 @@ def page_types(base_url: str) -> dict[str, str]:
         "survey": survey,
         "close-up": survey + "/layers/1",
         "unit-card": survey + "/layers/1/units/3",
-        "drift": f"/drift?dump={first}&dump={last}",
+        "compare": f"/compare?dump={first}&dump={last}",
+        "checks-help": "/help/checks",
         "error": "/dumps/no-such-dump",
     }
 

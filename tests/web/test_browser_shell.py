@@ -109,7 +109,7 @@ def test_chart_pages_load_compressed_then_from_the_cache(browser, demo_url, page
     cold_plotly = resource_timing(page, "plotly.min.js")
     assert cold_plotly["encoded"] < 0.4 * cold_plotly["decoded"], cold_plotly  # gzip on wire
     warm = []
-    for kind in ("close-up", "unit-card", "survey", "drift"):
+    for kind in ("close-up", "unit-card", "survey", "compare"):
         page.goto(demo_url + pages[kind])
         warm.append(charts_drawn_ms(page))
         cached = resource_timing(page, "plotly.min.js")
@@ -223,7 +223,13 @@ def test_contrast_formula_matches_the_wcag_worked_values():
 
 
 MUTED_AND_CHIPS = """() => {
-    const rgb = text => text.match(/[\\d.]+/g).slice(0, 4).map(Number);
+    // Computed colours come as rgb(a) with 0-255 channels, or, for color-mix(), as
+    // color(srgb r g b / a) with 0-1 channels (CSS Color 4).
+    const rgb = text => {
+        const parts = text.match(/[\\d.]+/g).map(Number);
+        if (!text.startsWith('color(srgb')) return parts.slice(0, 4);
+        return parts.slice(0, 3).map(v => v * 255).concat(parts.slice(3, 4));
+    };
     const background = el => {
         for (; el; el = el.parentElement) {
             const c = rgb(getComputedStyle(el).backgroundColor);

@@ -36,7 +36,7 @@ class Links(HTMLParser):
 def test_every_link_of_every_page_answers_and_stays_local(client, ready_dump, other_dump):
     other = post_file(client, other_dump).get_json()["id"]
     assert wait_until_done(client, other)["status"] == "ready"
-    start = ["/", f"/drift?dump={ready_dump}&dump={other}"]
+    start = ["/", f"/compare?dump={ready_dump}&dump={other}"]
     seen, queue, kinds = set(start), list(start), set()
     failures, remote = [], []
     while queue:
