@@ -1,8 +1,8 @@
-"""The link crawl: every address a page links to, followed from the Shelf and from the Drift page
+"""The link crawl: every address a page links to, followed from the Shelf and from the Compare page
 of two dumps until nothing new turns up, answers 200 and stays on this dashboard.
 
 The workspace holds the planted dump and a second one of the same layers, so every page type
-(Shelf, Survey, Close-up with its sorting, filtering and paging, Unit card, Drift, downloads)
+(Shelf, Survey, Close-up with its sorting, filtering and paging, Unit card, Compare, the checks help page, downloads)
 is reached. Every link is followed, none sampled.
 """
 
@@ -65,7 +65,7 @@ def test_every_link_of_every_page_answers_and_stays_local(client, ready_dump, ot
         assert len(seen) < MAX_PAGES
     assert failures == []
     assert remote == []
-    # Shelf, Drift, Survey, Close-up and Unit card pages (by depth of their address) all seen.
+    # Shelf, Compare, Survey, Close-up and Unit card pages (by depth of their address) all seen.
     assert {1, 2, 4, 6} <= kinds
     assert any("/units/" in address for address in seen)
     assert any("findings.csv?download=1" in address for address in seen)
