@@ -28,7 +28,7 @@ from actdoc.analysis.engine import analyze, findings_from_stats
 from actdoc.analysis.stats import LayerStats, accumulate_layer
 from actdoc.digest import file_sha256 as sha256_of
 from actdoc.errors import ActdocError
-from actdoc.io import open_dump
+from actdoc.io import ReadLimits, open_dump
 from actdoc.io.shards import is_sharded, place_layer, shard_layout
 from actdoc.model import Dump, Findings, Layer, SourceInfo
 
@@ -144,6 +144,7 @@ def analyze_target(
     digest: bool = True,
     probe: str | Path | None = None,
     synthetic_probe: int | None = None,
+    limits: ReadLimits | None = None,
 ) -> Findings:
     """What ``actdoc analyze DUMP [--scheduler ADDRESS]`` runs, in one call.
 
@@ -154,10 +155,11 @@ def analyze_target(
     is then "").
     ``probe`` (a probe file) and ``synthetic_probe`` (a sample count) run the forward pass of a
     weights-only checkpoint (``actdoc.forward``), as does a ``/probe/input`` in such a file.
+    ``limits`` bounds what each file may declare (``actdoc.io.ReadLimits``).
     """
     from actdoc.forward import with_forward_pass
 
-    options = {"activations": list(activations)}
+    options = {"activations": list(activations), "limits": limits}
     if scheduler is None and not is_sharded(dump):
         with open_dump(dump, **options) as opened:
             prepared = with_forward_pass(opened, probe, synthetic_probe)

@@ -90,7 +90,7 @@ def run(job: dict, emit) -> None:
                                   progress=progress, activations=job.get("activations") or (),
                                   workers=job.get("workers"), digest=bool(job.get("digest")),
                                   probe=job.get("probe"),
-                                  synthetic_probe=job.get("synthetic_probe"))
+                                  synthetic_probe=job.get("synthetic_probe"), limits=limits)
     else:
         with open_dump(target, activations=job.get("activations") or (),
                        limits=limits) as dump:

@@ -17,7 +17,7 @@ from actdoc.digest import file_sha256
 from actdoc.errors import InvalidDump, UnreadableDump, UnsupportedFormat, describe
 from actdoc.io.base import RawDump, assemble, check_attributes, order_layers
 from actdoc.io.hdf5 import READER as HDF5_READER, find_signature
-from actdoc.io.limits import ReadLimits
+from actdoc.io.limits import ReadLimits, check_declared
 from actdoc.io.memory import MemorySource, dump_from_arrays
 from actdoc.io.npz import DEFAULT_MEMBER_LIMIT, READER as NPZ_READER
 from actdoc.io.safetensors_file import READER as SAFETENSORS_READER
@@ -104,7 +104,8 @@ def open_dump(path: str | Path, *, activations: Sequence[str] = (),
               member_limit_bytes: int | None = None) -> Dump:
     """Open and validate a dump file; the returned Dump reads its arrays lazily (close it).
 
-    ``limits`` bounds what the file may declare (``ReadLimits()`` when None);
+    ``limits`` bounds what the file may declare (``ReadLimits()`` when None), checked from the
+    declared shapes before any data is read;
     ``member_limit_bytes`` is the older spelling of ``limits.member_bytes`` and wins when given.
     """
     path = Path(path)
@@ -114,6 +115,7 @@ def open_dump(path: str | Path, *, activations: Sequence[str] = (),
     reader = pick_reader(path)
     raw = reader.read(path, {"member_limit_bytes": limits.member_bytes, "limits": limits})
     try:
+        check_declared(raw, limits)  # before assembly, whose kind inference reads data
         if activations:
             raw = apply_activations(raw, activations)
         return assemble(raw)

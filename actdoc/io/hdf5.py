@@ -1,9 +1,11 @@
 """The HDF5 reader (docs/contract.md section 1, and section 3 for state-dict weight files).
 
 Datasets are read lazily: blocks of samples go straight into the caller's reused buffer with
-``Dataset.read_direct``. A dump must be self-contained, so datasets reached through external links,
-stored in external raw files, or assembled as virtual datasets are refused before any read. Soft
-links are followed, but only to objects inside the same file.
+``Dataset.read_direct``. A dump must be self-contained, so anything reached through an external
+link (at any depth: the /layers group, a layer, a dataset, the probe, or a soft link resolving
+through one), datasets stored in external raw files, and virtual datasets are refused before any
+read. Soft links are followed by actdoc itself (``actdoc.io.h5links``), only inside the file.
+Every failure of the HDF5 library on a damaged file becomes one ``UnreadableDump`` sentence.
 """
 
 from __future__ import annotations
@@ -20,13 +22,12 @@ from actdoc.errors import InvalidDump, UnreadableDump, UnsafeDump, describe
 from actdoc.io import statedict
 from actdoc.io.base import RawDump, RawLayer
 from actdoc.io.direct import FileMap, StorageMap, Tile, storage_map
+from actdoc.io.h5links import damaged, read_attributes, resolve
 from actdoc.model import LAYER_ARRAYS
 
 SIGNATURE = b"\x89HDF\r\n\x1a\n"
 #: Largest user block searched for the signature (HDF5 allows 512 bytes times a power of two).
 MAX_USERBLOCK = 1 << 30
-READ_ERRORS = (OSError, ValueError, RuntimeError, KeyError)
-
 
 def find_signature(path: Path) -> bool:
     """True when the HDF5 signature sits at offset 0 or after a user block (512, 1024, ...)."""
@@ -70,8 +71,10 @@ class HDF5Source:
                 if self._storage is _UNMAPPED:
                     try:
                         self._storage = storage_map(self._ds, self._files)
-                    except READ_ERRORS:
-                        self._storage = None  # h5py's own read will report the problem
+                    except MemoryError:
+                        raise
+                    except Exception:  # h5py's own read will report the problem
+                        self._storage = None
         return self._storage
 
     def tiles(self, start: int, stop: int) -> list[Tile] | None:
@@ -92,8 +95,9 @@ class HDF5Source:
             storage.release(start, min(stop, self.shape[0]))
 
     def _failed(self, exc: Exception) -> UnreadableDump:
+        text = str(exc).replace("\n", " ")[:200]
         return UnreadableDump(f"{self._where}: reading the data failed; the file is truncated or "
-                              f"corrupt ({exc})")
+                              f"corrupt ({type(exc).__name__}: {text})")
 
     def read_samples(self, start: int, stop: int, out: np.ndarray | None = None) -> np.ndarray:
         """Rows ``start:stop``; into ``out`` with read_direct when it is a fitting C buffer."""
@@ -112,19 +116,25 @@ class HDF5Source:
                     self._ds.read_direct(out, np.s_[start:stop])
                 return out
             return self._ds[start:stop]
-        except READ_ERRORS as exc:
+        except MemoryError:
+            raise
+        except Exception as exc:  # any failure of the library on a damaged file
             raise self._failed(exc) from None
 
     def read_unit(self, unit: int) -> np.ndarray:
         try:
             return self._ds[:, unit]
-        except READ_ERRORS as exc:
+        except MemoryError:
+            raise
+        except Exception as exc:  # any failure of the library on a damaged file
             raise self._failed(exc) from None
 
     def read_all(self) -> np.ndarray:
         try:
             return self._ds[()]
-        except READ_ERRORS as exc:
+        except MemoryError:
+            raise
+        except Exception as exc:  # any failure of the library on a damaged file
             raise self._failed(exc) from None
 
 
@@ -143,50 +153,33 @@ def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
     datasets; each refusal names the file, layer and array.
     """
     where = describe(path, layer, array)
-    link = group.get(name, getlink=True)
-    if link is None:
+    obj = resolve(group, name, where)
+    if obj is None:
         return None
-    if isinstance(link, h5py.ExternalLink):
-        raise UnsafeDump(f"{where}: is an external link to '{link.filename}'; a dump must be "
-                         f"self-contained")
-    try:
-        obj = group[name]
-    except READ_ERRORS as exc:
-        raise UnreadableDump(f"{where}: cannot be opened ({exc})") from None
     if not isinstance(obj, h5py.Dataset):
         raise InvalidDump(f"{where}: expected a dataset, found a group")
-    if obj.shape is None:
-        raise InvalidDump(f"{where}: has no shape (an empty dataspace, as h5py.Empty writes); "
-                          f"expected an array")
-    if Path(obj.file.filename).resolve() != Path(group.file.filename).resolve():
-        raise UnsafeDump(f"{where}: a link leads to another file; a dump must be self-contained")
-    if obj.is_virtual:
-        raise UnsafeDump(f"{where}: is a virtual dataset assembled from other files; a dump must "
-                         f"be self-contained")
-    if obj.id.get_create_plist().get_external_count() > 0:
-        raise UnsafeDump(f"{where}: keeps its data in external raw files; a dump must be "
-                         f"self-contained")
+    with damaged(where, "reading the dataset's description"):
+        if obj.shape is None:
+            raise InvalidDump(f"{where}: has no shape (an empty dataspace, as h5py.Empty "
+                              f"writes); expected an array")
+        if Path(obj.file.filename).resolve() != Path(group.file.filename).resolve():
+            raise UnsafeDump(f"{where}: a link leads to another file; a dump must be "
+                             f"self-contained")
+        if obj.is_virtual:
+            raise UnsafeDump(f"{where}: is a virtual dataset assembled from other files; a dump "
+                             f"must be self-contained")
+        if obj.id.get_create_plist().get_external_count() > 0:
+            raise UnsafeDump(f"{where}: keeps its data in external raw files; a dump must be "
+                             f"self-contained")
+        obj.dtype  # noqa: B018  a damaged datatype message fails here, not later
+        stored = obj.id.get_storage_size()
     declared = int(np.prod(obj.shape, dtype=np.float64)) * obj.dtype.itemsize
-    if declared > UNWRITTEN_CHECK_BYTES and obj.id.get_storage_size() * MAX_STORED_RATIO < declared:
+    if declared > UNWRITTEN_CHECK_BYTES and stored * MAX_STORED_RATIO < declared:
         raise InvalidDump(
             f"{where}: declares {declared / 2**30:.1f} GiB but stores only "
-            f"{obj.id.get_storage_size()} bytes: most of it was never written, and reading it "
+            f"{stored} bytes: most of it was never written, and reading it "
             f"would analyse fill values")
     return obj
-
-
-def plain_attrs(obj: h5py.HLObject) -> dict[str, Any]:
-    """Attributes as Python values (bytes decoded, 1-element arrays unwrapped)."""
-    out: dict[str, Any] = {}
-    for key, value in obj.attrs.items():
-        if isinstance(value, bytes):
-            value = value.decode("utf-8", "replace")
-        elif isinstance(value, np.ndarray) and value.size == 1:
-            value = value.reshape(()).item()
-        elif isinstance(value, np.generic):
-            value = value.item()
-        out[key] = value.decode("utf-8", "replace") if isinstance(value, bytes) else value
-    return out
 
 
 def tracks_order(group: h5py.Group) -> bool:
@@ -195,45 +188,45 @@ def tracks_order(group: h5py.Group) -> bool:
                 & h5py.h5p.CRT_ORDER_TRACKED)
 
 
-def layer_groups(handle: h5py.File, path: Path) -> list[tuple[str, h5py.Group]]:
-    """The groups under /layers, in the group's iteration order, refusing external links."""
-    layers = handle["layers"]
+def layer_groups(layers: h5py.Group, path: Path) -> list[tuple[str, h5py.Group]]:
+    """The groups under /layers, in the group's iteration order, reached only inside the file."""
     if not isinstance(layers, h5py.Group):
         raise InvalidDump(f"{describe(path)}: '/layers' is a dataset; expected a group")
+    with damaged(describe(path), "listing the layers"):
+        names = list(layers)
     out = []
-    for name in layers:
-        link = layers.get(name, getlink=True)
-        if isinstance(link, h5py.ExternalLink):
-            raise UnsafeDump(f"{describe(path, name)}: the layer is an external link to "
-                             f"'{link.filename}'; a dump must be self-contained")
-        group = layers[name]
+    for name in names:
+        group = resolve(layers, name, describe(path, name), "the layer")
         if isinstance(group, h5py.Group):
             out.append((name, group))
     return out
 
 
-def read_layers_layout(handle: h5py.File, path: Path,
+def read_layers_layout(layers: h5py.Group, path: Path,
                        files: FileMap | None = None) -> tuple[tuple[RawLayer, ...], str]:
     """RawLayers of the /layers layout and how to order them when ``order`` is missing."""
     raw = []
-    for position, (name, group) in enumerate(layer_groups(handle, path)):
+    for position, (name, group) in enumerate(layer_groups(layers, path)):
         arrays = {}
         for array in LAYER_ARRAYS:
             ds = checked_dataset(group, array, path, name, array)
             if ds is not None:
                 mapped = files if array in ("preact", "output") else None
                 arrays[array] = HDF5Source(ds, path, name, array, mapped)
-        raw.append(RawLayer(name=name, attrs=plain_attrs(group), arrays=arrays,
-                            position=position))
-    ordering = "position" if tracks_order(handle["layers"]) else "natural"
+        attrs = read_attributes(group, describe(path, name))
+        raw.append(RawLayer(name=name, attrs=attrs, arrays=arrays, position=position))
+    with damaged(describe(path), "reading the layers group's properties"):
+        ordering = "position" if tracks_order(layers) else "natural"
     return tuple(raw), ordering
 
 
 def read_state_dict(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...], str]:
     """RawLayers from root datasets named ``<layer>.weight`` / ``<layer>.bias``."""
-    names = [name for name in handle if statedict.parameter_of(name) is not None]
-    # The root group's plist, not the File's: the file's reports no order tracking at all.
-    if not tracks_order(handle["/"]):
+    with damaged(describe(path), "listing the root group"):
+        names = [name for name in handle if statedict.parameter_of(name) is not None]
+        # The root group's plist, not the File's: the file's reports no order tracking at all.
+        ordered = tracks_order(handle["/"])
+    if not ordered:
         from actdoc.io.base import natural_key
 
         names.sort(key=natural_key)
@@ -247,9 +240,8 @@ def read_state_dict(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...]
 
 def probe_input(handle: h5py.File, path: Path) -> HDF5Source | None:
     """/probe/input when present (checked like any dataset)."""
-    probe = handle.get("probe")
-    if not isinstance(probe, h5py.Group) or isinstance(handle.get("probe", getlink=True),
-                                                        h5py.ExternalLink):
+    probe = resolve(handle, "probe", describe(path, None, "probe"), "the probe group")
+    if not isinstance(probe, h5py.Group):
         return None
     ds = checked_dataset(probe, "input", path, None, "probe/input")
     return None if ds is None else HDF5Source(ds, path, None, "probe/input")
@@ -266,9 +258,11 @@ class HDF5Reader:
     def read(self, path: Path, options: Mapping[str, Any]) -> RawDump:
         try:
             handle = h5py.File(path, "r")
-        except READ_ERRORS as exc:
+        except MemoryError:
+            raise
+        except Exception as exc:  # h5py reports a damaged superblock in many ways
             raise UnreadableDump(f"{describe(path)}: not a readable HDF5 file; it is truncated or "
-                                 f"corrupt ({exc})") from None
+                                 f"corrupt ({type(exc).__name__}: {exc})") from None
         files = FileMap(path)
 
         def close() -> None:
@@ -276,8 +270,10 @@ class HDF5Reader:
             handle.close()
 
         try:
-            if "layers" in handle:
-                layers, ordering = read_layers_layout(handle, path, files)
+            layers_group = resolve(handle, "layers", describe(path, None, "layers"),
+                                   "the layers group")
+            if layers_group is not None:
+                layers, ordering = read_layers_layout(layers_group, path, files)
             else:
                 layers, ordering = read_state_dict(handle, path)
             probe = probe_input(handle, path)
