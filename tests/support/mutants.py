@@ -177,3 +177,14 @@ def random_mutation(rng: random.Random, size: int, structure: list[int]) -> Muta
         value = rng.randrange(256)
     count = rng.choice((1, 2, 7, 64)) if op in ("insert", "delete") else 1
     return Mutation(op, position, value, count)
+
+
+#: One-byte changes to the demo dumps that make the HDF5 library itself loop for ever while
+#: actdoc reads the layers' ``activation`` attribute (a variable-length string kept in a global
+#: heap collection, "GCOL"): (seed, byte offset, new value). Found by scanning the collections'
+#: first 128 bytes with five values each; docs/reader-fuzzing.md explains the loop. actdoc
+#: cannot interrupt it (the library holds the GIL); the dashboard opens uploads in a child
+#: process with a time limit, and these files are its test cases.
+HDF5_HANGS = (
+    ("relu_dying_step2.h5", 2096, 0x52),
+)
