@@ -31,6 +31,8 @@ from actdoc.errors import DumpTooLarge, InvalidDump, UnreadableDump, UnsafeDump,
 
 #: Compressed bytes read from the file per step.
 RAW_STEP = 64 * 1024
+#: Largest LZMA dictionary allocated for one member (xz's largest preset, -9, uses 64 MiB).
+MAX_LZMA_DICTIONARY = 256 * 1024**2
 #: Longest ``.npy`` header accepted (numpy's own default ``max_header_size``, numpy.lib.format).
 MAX_HEADER = 10_000
 NPY_MAGIC = b"\x93NUMPY"
@@ -109,11 +111,18 @@ class MemberStream:
         size = struct.unpack("<H", head[2:4])[0]
         props = self._raw(size)
         try:
-            filters = [lzma._decode_filter_properties(lzma.FILTER_LZMA1, props)]
-            return lzma.LZMADecompressor(lzma.FORMAT_RAW, filters=filters)
+            options = lzma._decode_filter_properties(lzma.FILTER_LZMA1, props)
         except (lzma.LZMAError, ValueError, TypeError) as exc:
             raise UnreadableDump(f"{self._where}: the LZMA member's properties are invalid "
                                  f"({exc})") from None
+        # The decoder allocates the declared dictionary up front (up to 4 GiB); matches never
+        # reach back further than the member's own length, so that bounds what is needed.
+        options["dict_size"] = max(4096, min(options.get("dict_size", 0), self._size))
+        if options["dict_size"] > MAX_LZMA_DICTIONARY:
+            raise UnreadableDump(f"{self._where}: the LZMA member declares a dictionary of "
+                                 f"{options['dict_size']} bytes, more than the "
+                                 f"{MAX_LZMA_DICTIONARY} actdoc allocates")
+        return lzma.LZMADecompressor(lzma.FORMAT_RAW, filters=[options])
 
     def _next(self, want: int) -> bytes:
         """Up to ``want`` bytes (fewer near the end); b"" at the end of the member."""

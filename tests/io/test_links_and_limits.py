@@ -10,6 +10,7 @@ when a path is opened. The archive bombs use Python's ``zipfile`` with the bzip2
 
 from __future__ import annotations
 
+import struct
 import zipfile
 
 import h5py
@@ -197,3 +198,22 @@ def test_compressed_header_is_read_without_expanding_the_member(tmp_path, runner
     result = runner.run(bomb, memory=512 * 2**20)
     assert baseline["outcome"] == "ok" and result["outcome"] == "ok", result
     assert result["peak_rss"] - baseline["peak_rss"] < 24 * 2**20
+
+
+def test_lzma_dictionary_size_is_bounded_by_the_member(tmp_path, runner):
+    """APPNOTE 5.8.8 / the LZMA properties: byte 0 is lc/lp/pb, bytes 1-4 the dictionary size,
+    which liblzma allocates before decoding. A forged 4 GiB dictionary on a small member must
+    not be allocated (found by the long fuzz run as a MemoryError)."""
+    path = tmp_path / "dictionary.npz"
+    with zipfile.ZipFile(path, "w", zipfile.ZIP_LZMA) as zf:
+        with zf.open("fc/preact.npy", "w") as member:
+            np.lib.format.write_array(member, Z)
+    data = bytearray(path.read_bytes())
+    name_length, extra_length = struct.unpack_from("<HH", data, 26)
+    props = 30 + name_length + extra_length + 4
+    struct.pack_into("<I", data, props + 1, 0xFFFFFFFF)
+    path.write_bytes(bytes(data))
+    result = runner.run(path, memory=512 * 2**20)
+    assert result["outcome"] == "ok", result
+    with open_dump(path, activations=["linear"]) as dump:
+        np.testing.assert_array_equal(dump.layers[0].sources["preact"].read_all(), Z)

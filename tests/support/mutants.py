@@ -180,11 +180,16 @@ def random_mutation(rng: random.Random, size: int, structure: list[int]) -> Muta
 
 
 #: One-byte changes to the demo dumps that make the HDF5 library itself loop for ever while
-#: actdoc reads the layers' ``activation`` attribute (a variable-length string kept in a global
-#: heap collection, "GCOL"): (seed, byte offset, new value). Found by scanning the collections'
-#: first 128 bytes with five values each; docs/reader-fuzzing.md explains the loop. actdoc
-#: cannot interrupt it (the library holds the GIL); the dashboard opens uploads in a child
-#: process with a time limit, and these files are its test cases.
+#: actdoc reads the layers' ``activation`` attribute (a variable-length string kept in the global
+#: heap collection "GCOL" at offset 2048 of every demo dump): (seed, byte offset, new value).
+#: Offsets 2072, 2096 and 2120 are the low bytes of the sizes of heap objects 1-3, 2144 that of
+#: the free space. Found by scanning each collection's first 128 bytes with five values;
+#: docs/reader-fuzzing.md lists them all and explains the loop. actdoc cannot interrupt it (the
+#: library holds the GIL); the dashboard opens uploads in a child process with a time limit,
+#: and these files are its test cases.
 HDF5_HANGS = (
     ("relu_dying_step2.h5", 2096, 0x52),
+    ("relu_dying_step2.h5", 2072, 0x00),
+    ("healthy_baseline.h5", 2120, 0xFF),
+    ("tanh_raw_inputs.h5", 2144, 0x80),
 )
