@@ -119,9 +119,12 @@ def _limit_options(parser: argparse.ArgumentParser) -> None:
 
 
 def _declared_limits(args: argparse.Namespace):
-    """The ReadLimits the command-line options describe."""
+    """The ReadLimits the command-line options describe (the defaults for a command without
+    them, such as ``compare``)."""
     from actdoc.io.limits import ReadLimits
 
+    if not hasattr(args, "max_member_bytes"):
+        return ReadLimits()
     return ReadLimits(member_bytes=args.max_member_bytes if args.max_member_bytes is not None
                       else 2**63, total_bytes=args.max_total_bytes,
                       units_per_layer=args.max_units, weight_bytes=args.max_weight_bytes)

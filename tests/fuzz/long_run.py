@@ -4,7 +4,7 @@ Not part of the test suite (it takes an hour or more on two cores). Each case is
 (tests/support/mutants.py) with one to three random mutations, run in a forked child under a
 wall-clock and an address-space limit (tests/support/fuzzing.py). The report counts outcomes and
 lists every crash, hang and memory failure with the seed, the mutations and the stack, so that a
-case can be rebuilt. The result of the last run is recorded in docs/hardening.md.
+case can be rebuilt. The result of the last run is recorded in docs/reader-fuzzing.md.
 """
 
 from __future__ import annotations

@@ -9,7 +9,7 @@ instead of freezing or swapping the suite.
 
 Accepted outcomes: the dump reads through, or an ``actdoc.errors`` exception whose message is one
 line naming the file. A hang inside the HDF5 library itself (its global heap decoder can loop on
-a damaged collection, see docs/hardening.md) is tolerated here and recorded with ``event``; the
+a damaged collection, see docs/reader-fuzzing.md) is tolerated here and recorded with ``event``; the
 dashboard opens uploads in a child process with a time limit for that reason. The draws are
 derandomised so the normal run is repeatable; ``python -m tests.fuzz.long_run`` explores further.
 """
