@@ -143,6 +143,10 @@ UNWRITTEN_CHECK_BYTES = 64 << 20
 #: Deflate, the one compression filter h5py always has, packs at most about 1032:1 (an all-zero
 #: dead layer), so a dataset that stores less than 1/1100 of its declared size was never written.
 MAX_STORED_RATIO = 1100
+#: Largest chunk read: HDF5 reads and decompresses a whole chunk to return any part of it, so a
+#: 4 GiB chunk of deflated zeros (4 MB on disk) holding ten rows would cost 4 GiB of memory. Our
+#: writer's chunks are 1 MiB; HDF5's documentation advises chunks of about 1 MiB.
+MAX_CHUNK_BYTES = 256 * 1024**2
 
 
 def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
@@ -173,6 +177,11 @@ def checked_dataset(group: h5py.Group, name: str, path: Path, layer: str | None,
                              f"self-contained")
         obj.dtype  # noqa: B018  a damaged datatype message fails here, not later
         stored = obj.id.get_storage_size()
+        chunk_bytes = math.prod(obj.chunks) * obj.dtype.itemsize if obj.chunks else 0
+    if chunk_bytes > MAX_CHUNK_BYTES:
+        raise InvalidDump(f"{where}: is stored in chunks of {chunk_bytes} bytes, more than the "
+                          f"{MAX_CHUNK_BYTES} bytes actdoc reads at once (HDF5 decompresses a whole "
+                          f"chunk to read any part of it); rewrite it with smaller chunks")
     declared = int(np.prod(obj.shape, dtype=np.float64)) * obj.dtype.itemsize
     if declared > UNWRITTEN_CHECK_BYTES and stored * MAX_STORED_RATIO < declared:
         raise InvalidDump(

@@ -217,3 +217,19 @@ def test_lzma_dictionary_size_is_bounded_by_the_member(tmp_path, runner):
     assert result["outcome"] == "ok", result
     with open_dump(path, activations=["linear"]) as dump:
         np.testing.assert_array_equal(dump.layers[0].sources["preact"].read_all(), Z)
+
+
+def test_a_huge_chunk_around_a_few_rows_is_refused(tmp_path):
+    """HDF5 decompresses a whole chunk to read any part of it ("Chunking in HDF5", HDF Group
+    docs): ten rows in a deflated 512 MiB chunk of a file of a few hundred kilobytes cost 512 MiB
+    (measured: a 256 MiB chunk in a 271 KB file took 302 MB to read). The chunk shape is
+    declared, so the refusal needs no chunk written."""
+    path = tmp_path / "bigchunk.h5"
+    with h5py.File(path, "w") as f:
+        group = f.create_group("layers/fc")
+        group.attrs["activation"] = "relu"
+        group.create_dataset("preact", shape=(10, 4), dtype="f4", maxshape=(None, None),
+                             chunks=(2**17, 1024), compression="gzip")
+    with pytest.raises(errors.InvalidDump, match=r"array 'preact': is stored in chunks of "
+                                                 r"536870912 bytes"):
+        open_dump(path)
