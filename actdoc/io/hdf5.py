@@ -249,7 +249,7 @@ def read_state_dict(handle: h5py.File, path: Path) -> tuple[tuple[RawLayer, ...]
 
 def probe_input(handle: h5py.File, path: Path) -> HDF5Source | None:
     """/probe/input when present (checked like any dataset)."""
-    probe = resolve(handle, "probe", describe(path, None, "probe"), "the probe group")
+    probe = resolve(handle, "probe", describe(path), "the probe group")
     if not isinstance(probe, h5py.Group):
         return None
     ds = checked_dataset(probe, "input", path, None, "probe/input")
@@ -279,8 +279,7 @@ class HDF5Reader:
             handle.close()
 
         try:
-            layers_group = resolve(handle, "layers", describe(path, None, "layers"),
-                                   "the layers group")
+            layers_group = resolve(handle, "layers", describe(path), "the layers group")
             if layers_group is not None:
                 layers, ordering = read_layers_layout(layers_group, path, files)
             else:
