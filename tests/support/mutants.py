@@ -133,6 +133,8 @@ class Mutation:
 
     def apply(self, data: bytes) -> bytes:
         buf = bytearray(data)
+        if not buf and self.op != "insert":  # truncated to nothing: only an insert can act
+            return data
         pos = min(self.position, max(0, len(buf) - 1))
         if self.op == "set":
             buf[pos] = self.value & 0xFF
