@@ -15,7 +15,7 @@ import time
 from pathlib import Path
 from typing import Callable, Sequence
 
-from actdoc import __version__, cli_repair
+from actdoc import __version__, cli_limits, cli_repair
 from actdoc.errors import ActdocError
 from actdoc.escaping import visible, visible_lines
 
@@ -77,59 +77,6 @@ def _input_options(parser: argparse.ArgumentParser) -> None:
                              "at most this much memory beyond its start-up and the file")
 
 
-def byte_size(text: str) -> int | None:
-    """``--max-*-bytes`` values: a count of bytes with an optional binary suffix (K, M, G, T;
-    ``2G`` is 2 GiB), or ``none`` for no limit."""
-    value = text.strip().lower().removesuffix("ib").removesuffix("b")
-    if value in ("none", "off"):
-        return None
-    scale = 1
-    if value and value[-1] in "kmgt":
-        scale = 1024 ** ("kmgt".index(value[-1]) + 1)
-        value = value[:-1]
-    try:
-        number = float(value)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a size (e.g. 500M, 8G, none)") from None
-    if not number >= 0 or number * scale > 2**63:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a size (e.g. 500M, 8G, none)")
-    return int(number * scale)
-
-
-def unit_count(text: str) -> int | None:
-    """``--max-units``: a positive whole number, or ``none``."""
-    if text.strip().lower() in ("none", "off"):
-        return None
-    if not text.strip().isdigit() or int(text) < 1:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a positive whole number")
-    return int(text)
-
-
-def _limit_options(parser: argparse.ArgumentParser) -> None:
-    """What a dump may declare before it is refused (docs/dump-layout.md, "Size limits")."""
-    group = parser.add_argument_group("size limits (a number with K, M, G or T, or 'none')")
-    group.add_argument("--max-total-bytes", type=byte_size, metavar="SIZE", default=None,
-                       help="all arrays of the dump together, as declared (default: none)")
-    group.add_argument("--max-member-bytes", type=byte_size, metavar="SIZE", default="8G",
-                       help="one NPZ member, uncompressed (default: 8G)")
-    group.add_argument("--max-weight-bytes", type=byte_size, metavar="SIZE", default=None,
-                       help="one layer's weight array (default: none)")
-    group.add_argument("--max-units", type=unit_count, metavar="N", default=None,
-                       help="units (or channels) of one layer (default: none)")
-
-
-def _declared_limits(args: argparse.Namespace):
-    """The ReadLimits the command-line options describe (the defaults for a command without
-    them, such as ``compare``)."""
-    from actdoc.io.limits import ReadLimits
-
-    if not hasattr(args, "max_member_bytes"):
-        return ReadLimits()
-    return ReadLimits(member_bytes=args.max_member_bytes if args.max_member_bytes is not None
-                      else 2**63, total_bytes=args.max_total_bytes,
-                      units_per_layer=args.max_units, weight_bytes=args.max_weight_bytes)
-
-
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="actdoc",
@@ -139,14 +86,14 @@ def build_parser() -> argparse.ArgumentParser:
 
     analyze = sub.add_parser("analyze", help="print or write the findings for a dump")
     _input_options(analyze)
-    _limit_options(analyze)
+    cli_limits.add_limit_options(analyze)
     analyze.add_argument("--format", choices=("json", "csv", "md", "text"), default="text")
     analyze.add_argument("--output", type=Path, metavar="FILE",
                          help="write the report here instead of standard output")
 
     check = sub.add_parser("check", help="exit 1 when a finding reaches the given level")
     _input_options(check)
-    _limit_options(check)
+    cli_limits.add_limit_options(check)
     check.add_argument("--fail-on", choices=("warning", "critical"), default="critical")
 
     serve = sub.add_parser("serve", help="open the dashboard")
@@ -210,7 +157,7 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
                   scheduler=scheduler, digest=digest,
                   probe=None if getattr(args, "probe", None) is None else str(args.probe),
                   synthetic_probe=getattr(args, "synthetic_probe", None),
-                  read_limits=_declared_limits(args))
+                  read_limits=cli_limits.declared_limits(args))
         cli_repair.synthetic_warning(args)
         return analyse_in_child(job, limits, Path(target).name, ProgressBar(label))
     hashing = None
@@ -228,7 +175,7 @@ def _analyse(args: argparse.Namespace, label: str, path: Path | None = None,
                               activations=getattr(args, "activation", ()), workers=workers,
                               digest=digest and hashing is None, probe=getattr(args, "probe", None),
                               synthetic_probe=getattr(args, "synthetic_probe", None),
-                              limits=_declared_limits(args))
+                              limits=cli_limits.declared_limits(args))
     cli_repair.synthetic_warning(args)
     if hashing is not None:
         try:
