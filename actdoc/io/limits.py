@@ -37,7 +37,7 @@ class ReadLimits:
     def for_uploads(cls) -> "ReadLimits":
         """The stricter limits for files uploaded to the dashboard."""
         return cls(member_bytes=2 * 1024**3, total_bytes=8 * 1024**3,
-                   units_per_layer=65_536, weight_bytes=256 * 1024**2)
+                   units_per_layer=262_144, weight_bytes=256 * 1024**2)
 
 
 def size_text(nbytes: int) -> str:

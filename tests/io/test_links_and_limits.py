@@ -112,13 +112,13 @@ def test_dangling_soft_link_is_an_absent_array(tmp_path):
 
 def test_units_per_layer(tmp_path, capsys):
     path = tmp_path / "wide.npz"
-    write_npz(path, {"fc": {"activation": "relu", "preact": np.zeros((2, 70_000), "f4")}})
+    write_npz(path, {"fc": {"activation": "relu", "preact": np.zeros((1, 300_000), "f4")}})
     with pytest.raises(errors.DumpTooLarge, match=r"^wide\.npz, layer 'fc', array 'preact': "
-                                                  r"declares 70000 units, more than the limit of "
-                                                  r"65536 units per layer"):
+                                                  r"declares 300000 units, more than the limit "
+                                                  r"of 262144 units per layer"):
         open_dump(path, limits=ReadLimits.for_uploads())
     with open_dump(path) as dump:  # the command line's default has no such limit
-        assert dump.layers[0].info.units == 70_000
+        assert dump.layers[0].info.units == 300_000
     assert main(["check", str(path), "--max-units", "1000"]) == 2
     assert "--max-units" in capsys.readouterr().err
 
