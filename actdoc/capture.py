@@ -14,6 +14,14 @@ activation. Modules (``nn.ReLU``, ``nn.Sigmoid``, ...) and functional calls (``F
 first (normalisation, dropout in training mode, a reshape, the network's output) is recorded
 with its total input only and declared linear.
 
+With ``loss_fn`` (and ``targets``, or a DataLoader of ``(inputs, targets)`` pairs) each batch
+also runs backward: the loss ``loss_fn(model(inputs), targets)`` is differentiated with
+``torch.autograd.grad`` with respect to every recorded module's output, and the result is the
+layer's ``grad`` array (dL/dz, docs/dump-layout.md). The hook hands the activation a copy of the
+module's output, so an in-place activation cannot overwrite the tensor the gradient is taken
+at; ``autograd.grad`` fills no parameter's ``.grad``, so the model's own gradients stay as they
+were.
+
 Nothing is left behind: hooks are removed and the model's training flags are restored even when
 the forward pass fails, so a second capture of the same model works the same way. torch is
 imported only inside the functions here; the rest of actdoc never imports it.
@@ -53,6 +61,9 @@ class Pending:
     output: np.ndarray | None = None
     kind: str | None = None
     options: dict = field(default_factory=dict)
+    #: The module's own output, kept apart from ``tensor`` so dL/dz can be taken at it.
+    source: Any = None
+    grad: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -63,6 +74,8 @@ class CaptureReport:
     layers: tuple[tuple[str, str], ...]
     samples: int
     unpaired: tuple[str, ...]
+    #: Whether each layer's ``grad`` (dL/dz) was recorded (a ``loss_fn`` was given).
+    gradients: bool = False
 
 
 def _torch():
@@ -79,24 +92,33 @@ def _leaky_slope(args: tuple, kwargs: dict) -> float:
     return float(kwargs.get("negative_slope", 0.01))
 
 
-def _batches(probe: Any, batch_size: int) -> Iterable[Any]:
-    """Input tensors from a tensor (split into batches) or an iterable such as a DataLoader
-    (its items, or the first element of tuple/list items: (inputs, targets))."""
+def _batches(probe: Any, batch_size: int, targets: Any = None) -> Iterable[tuple[Any, Any]]:
+    """(inputs, targets) batches from a tensor (split into batches, ``targets`` split alike) or
+    an iterable such as a DataLoader (its items, or tuple/list items (inputs, targets, ...));
+    targets are None where there are none."""
     torch = _torch()
     if isinstance(probe, torch.Tensor):
         if probe.ndim < 2:
             raise ValueError(f"probe: expected a tensor [samples, ...], got shape "
                              f"{list(probe.shape)}")
+        if targets is not None and len(targets) != probe.shape[0]:
+            raise ValueError(f"targets: {len(targets)} rows for a probe of "
+                             f"{probe.shape[0]} samples; expected one target per sample")
         for start in range(0, probe.shape[0], batch_size):
-            yield probe[start:start + batch_size]
+            yield (probe[start:start + batch_size],
+                   None if targets is None else targets[start:start + batch_size])
         return
+    if targets is not None:
+        raise ValueError("targets: give them with a probe tensor; a DataLoader brings its own "
+                         "as (inputs, targets) pairs")
     for item in probe:
+        wanted = None
         if isinstance(item, (tuple, list)):
-            item = item[0]
+            item, wanted = item[0], (item[1] if len(item) > 1 else None)
         if not isinstance(item, torch.Tensor):
             raise TypeError(f"probe: expected batches of tensors (or (inputs, ...) tuples), got "
                             f"{type(item).__name__}")
-        yield item
+        yield item, wanted
 
 
 def _recorded_modules(model: Any, only: Iterable[str] | None) -> list[tuple[str, Any]]:
@@ -117,7 +139,8 @@ def _recorded_modules(model: Any, only: Iterable[str] | None) -> list[tuple[str,
 
 def capture(model: Any, probe: Any, path: str | Path, *, batch_size: int = 256,
             layers: Iterable[str] | None = None, overwrite: bool = False,
-            store_probe: bool = True, dtype: str = "float32") -> CaptureReport:
+            store_probe: bool = True, dtype: str = "float32", loss_fn: Any = None,
+            targets: Any = None) -> CaptureReport:
     """Run ``model`` over ``probe`` and write an HDF5 dump of its Linear/Conv layers to ``path``.
 
     ``probe`` is a tensor ``[samples, ...]`` (split into ``batch_size`` batches) or an iterable
@@ -126,9 +149,19 @@ def capture(model: Any, probe: Any, path: str | Path, *, batch_size: int = 256,
     the probe never has to fit in memory at once. ``store_probe`` keeps the inputs as
     ``/probe/input``. Layers whose total input is never negative and equals the output on every
     sample raise an ``InPlaceWarning`` (``actdoc.io.writer``).
+
+    ``loss_fn(outputs, targets) -> scalar`` also records each layer's ``grad``: dL/dz of the
+    loss as ``loss_fn`` returns it on each batch (with a mean over the batch every row carries
+    the factor 1/batch size; ``reduction="sum"`` gives gradients that do not depend on the
+    batching). ``targets`` go with a probe tensor (one per sample); a DataLoader's
+    ``(inputs, targets)`` pairs bring their own.
     """
     torch = _torch()
     from torch.overrides import TorchFunctionMode
+
+    gradients = loss_fn is not None
+    if targets is not None and not gradients:
+        raise ValueError("targets: given without loss_fn; gradients need both")
 
     modules = _recorded_modules(model, layers)
     device = next((p.device for p in model.parameters()), torch.device("cpu"))
@@ -143,7 +176,12 @@ def capture(model: Any, probe: Any, path: str | Path, *, batch_size: int = 256,
                                    f"are not supported)")
             seen_in_batch.add(name)
             copied = output.detach().to("cpu", copy=True).numpy()
-            pending[id(output)] = Pending(name, output, copied)
+            if not gradients:
+                pending[id(output)] = Pending(name, output, copied)
+                return None
+            handed = output.clone()  # an in-place activation overwrites this copy, not z
+            pending[id(handed)] = Pending(name, handed, copied, source=output)
+            return handed
         return hook
 
     class PairActivations(TorchFunctionMode):
@@ -171,12 +209,21 @@ def capture(model: Any, probe: Any, path: str | Path, *, batch_size: int = 256,
     samples = 0
     try:
         model.eval()
-        with torch.no_grad():
-            for batch in _batches(probe, batch_size):
+        with torch.enable_grad() if gradients else torch.no_grad():
+            for batch, wanted in _batches(probe, batch_size, targets):
                 pending.clear()
                 seen_in_batch.clear()
+                inputs = batch.to(device)
+                if gradients:
+                    if wanted is None:
+                        raise ValueError("loss_fn: the probe brought no targets; give "
+                                         "targets=... or a DataLoader of (inputs, targets)")
+                    if inputs.is_floating_point():  # dL/dz exists even with frozen weights
+                        inputs = inputs.detach().requires_grad_(True)
                 with PairActivations():
-                    model(batch.to(device))
+                    result = model(inputs)
+                if gradients:
+                    _gradients(torch, loss_fn(result, wanted.to(device)), pending)
                 samples += _write_batch(writer, modules, pending, declared, dtype)
                 if store_probe:
                     writer.append_probe_input(batch.detach().cpu().numpy())
@@ -193,7 +240,25 @@ def capture(model: Any, probe: Any, path: str | Path, *, batch_size: int = 256,
             module.train(flag)
         pending.clear()
     unpaired = tuple(name for name, kind in declared.items() if kind == "linear")
-    return CaptureReport(Path(path), tuple(declared.items()), samples, unpaired)
+    return CaptureReport(Path(path), tuple(declared.items()), samples, unpaired, gradients)
+
+
+def _gradients(torch: Any, loss: Any, pending: dict[int, Pending]) -> None:
+    """dL/dz at every recorded module's own output, by ``torch.autograd.grad`` (no parameter's
+    ``.grad`` is touched); a layer the loss does not depend on gets zeros, its true gradient."""
+    if not isinstance(loss, torch.Tensor) or loss.numel() != 1:
+        raise ValueError(f"loss_fn: expected a scalar tensor, got "
+                         f"{type(loss).__name__}{list(getattr(loss, 'shape', []))}")
+    records = list(pending.values())
+    sources = [record.source for record in records]
+    if not loss.requires_grad or not all(source.requires_grad for source in sources):
+        raise ValueError("loss_fn: the loss does not depend on the recorded layers through "
+                         "autograd (was it computed from detached values?)")
+    grads = torch.autograd.grad(loss, sources, allow_unused=True)
+    for record, grad in zip(records, grads):
+        record.grad = (np.zeros_like(record.preact) if grad is None
+                       else grad.detach().to("cpu").numpy())
+        record.source = record.tensor = None
 
 
 def _write_batch(writer: DumpWriter, modules: list[tuple[str, Any]],
@@ -219,10 +284,7 @@ def _write_batch(writer: DumpWriter, modules: list[tuple[str, Any]],
             raise RuntimeError(f"layer '{name}': followed by {kind} in one batch and by "
                                f"{declared[name]} in another; capture needs one activation per "
                                f"layer")
-        if record.output is None:
-            writer.append(name, preact=record.preact)
-        else:
-            writer.append(name, preact=record.preact, output=record.output)
+        writer.append(name, preact=record.preact, output=record.output, grad=record.grad)
         rows = record.preact.shape[0]
     return rows
 
