@@ -7,8 +7,9 @@ from __future__ import annotations
 from collections import Counter
 from typing import Any
 
-from actdoc.formatting import clean_number
-from actdoc.model import Finding, Findings, LayerReport, LayerStatus, ProbeReport, Severity
+from actdoc.formatting import clean_number, number
+from actdoc.model import (PROBE_LAYER, Finding, Findings, LayerReport, LayerStatus, ProbeReport,
+                          Severity)
 
 SCHEMA = "actdoc.findings/1"
 
@@ -107,6 +108,36 @@ def ordered_findings(findings: Findings) -> list[Finding]:
     indexed = list(enumerate(findings.findings))
     indexed.sort(key=lambda pair: (-pair[1].severity.rank, position.get(pair[1].layer, 0), pair[0]))
     return [finding for _, finding in indexed]
+
+
+def probe_summary(probe: ProbeReport | None) -> str | None:
+    """The probe batch in one plain sentence for the prose reports: samples, feature scale,
+    rows holding NaN or infinity (None when the findings have no probe section)."""
+    entry = probe_entry(probe)
+    if entry is None:
+        return None
+    parts = [f"{entry['samples']} samples"]
+    if entry["stored_input"]:
+        parts.append(f"{entry['features']} input features (std up to "
+                     f"{number(entry['feature_std_max'])}, |mean| up to "
+                     f"{number(entry['feature_abs_mean_max'])})")
+        rows = entry["nonfinite_rows"]
+        parts.append(f"{rows} row{'s' if rows != 1 else ''} with NaN or infinity")
+    else:
+        parts.append("input not stored in the dump (its scale was not checked)")
+    return ", ".join(parts)
+
+
+def place(finding: Finding) -> str:
+    """Where a finding is, for prose: the layer's name, or "probe batch" for findings about the
+    probe input itself (``layer`` = PROBE_LAYER, no layer of the network)."""
+    return "probe batch" if finding.layer == PROBE_LAYER else finding.layer
+
+
+def layer_level_checks(findings: Findings, name: str) -> list[str]:
+    """The checks that name layer ``name`` as a whole (no units): gradient_flow,
+    saturated_layer, in_place_record...; the unit shares in ``fractions`` do not show them."""
+    return [f.check for f in findings.for_layer(name) if not f.units]
 
 
 def unit_list(units: tuple[int, ...], limit: int = 12) -> str:

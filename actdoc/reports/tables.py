@@ -12,8 +12,9 @@ from typing import Any
 
 from actdoc.escaping import csv_field, csv_text, markdown_code, markdown_text
 from actdoc.formatting import exact, share
-from actdoc.model import Findings
-from actdoc.reports.document import ordered_findings, unit_list, verdict
+from actdoc.model import PROBE_LAYER, Findings
+from actdoc.reports.document import (layer_level_checks, ordered_findings, probe_summary,
+                                     unit_list, verdict)
 
 CSV_COLUMNS = ("layer", "unit", "check", "severity", "measure", "layer_measure", "threshold")
 
@@ -69,11 +70,14 @@ def render_markdown(findings: Findings) -> str:
         "",
         f"> {markdown_text(findings.caveat)}",
         "",
-        "## Layers",
-        "",
     ]
+    probe = probe_summary(findings.probe)
+    if probe is not None:
+        lines[5:5] = [f"- probe batch: {markdown_text(probe)}"]
+    lines += ["## Layers", ""]
     checks = sorted({check for report in findings.layers for check in report.fractions})
-    header = ["#", "layer", "kind", "units", "status"] + [markdown_text(c) for c in checks]
+    header = (["#", "layer", "kind", "units", "status"] + [markdown_text(c) for c in checks]
+              + ["whole-layer findings"])
     lines.append("| " + " | ".join(header) + " |")
     lines.append("|" + "---|" * len(header))
     for report in findings.layers:
@@ -82,18 +86,23 @@ def render_markdown(findings: Findings) -> str:
         row = [str(info.index), markdown_code(info.name, table=True), markdown_text(kind),
                str(info.units), report.status.value]
         row += [share(report.fractions.get(check)) for check in checks]
+        row.append(markdown_text(", ".join(layer_level_checks(findings, report.name))))
         lines.append("| " + " | ".join(row) + " |")
     lines += ["", "## Findings", ""]
     if not findings.findings:
         lines.append("No check flagged anything on this probe batch.")
     for finding in ordered_findings(findings):
+        probe = finding.layer == PROBE_LAYER
+        where = "the probe batch" if probe else markdown_code(finding.layer)
         lines += [
-            f"### {finding.severity.value.upper()}: {markdown_code(finding.check)} in "
-            f"{markdown_code(finding.layer)}",
+            f"### {finding.severity.value.upper()}: {markdown_code(finding.check)} in {where}",
             "",
             markdown_text(finding.summary),
             "",
-            f"- units: {unit_list(finding.units)}",
+        ]
+        if not probe:
+            lines.append(f"- units: {unit_list(finding.units)}")
+        lines += [
             f"- measure: {exact(finding.measure)} (limit {exact(finding.threshold)})",
             f"- likely cause: {markdown_text(finding.cause)}",
             f"- what to try: {markdown_text(finding.remedy)}",
