@@ -22,6 +22,22 @@ GLOSSARY: dict[str, str] = {
     "low / high fraction": (
         "the share of observations with the output in the saturated zone at the low or the "
         "high end of a logistic or tanh curve, where the curve is flat."),
+    "saturated side": (
+        "for a saturated unit, where its saturated observations lie: low (at the bottom "
+        "asymptote), high (at the top one) or both (split between the two, each side under "
+        "the limit alone but together over it). Either way the curve is flat there and "
+        "passes almost no gradient."),
+    "samples fired on": (
+        "for a convolutional channel: the share of probe samples on which the channel is "
+        "active at one position or more. A channel active on few positions can still fire "
+        "somewhere on most samples (it detects something rare in place, not nothing); "
+        "one that fires on no sample is dead."),
+    "gradient RMS": (
+        "the root mean square of dL/dz, the gradient of the loss with respect to the total "
+        "input, over the probe observations (only when the dump stores it, the optional "
+        "grad array). Across depth it shows how much of the learning signal reaches each "
+        "layer; the gradient-flow check flags a layer whose RMS is more than the "
+        "gradient_limit times smaller (or larger) than the last layer's."),
     "linear fraction": (
         "the share of observations with z in the near-linear zone, where the slope is nearly "
         "its largest and the unit behaves almost like a linear one."),

@@ -52,6 +52,12 @@ LOOKS: dict[str, Look] = {
     "probe_size": Look("probe batch too small", "#0f6674", "diamond-open", "◇"),
     "probe_scale": Look("inputs not standardised", "#7c4a03", "triangle-up-open", "△"),
     "probe_nonfinite": Look("probe rows hold NaN", "#111111", "asterisk-open", "✳"),
+    "in_place_record": Look("z recorded after an in-place activation", "#5b3f8c", "bowtie",
+                            "⋈"),
+    "rarely_fires": Look("rarely fires (from its weights)", "#b4531a", "triangle-down-open",
+                         "▽", "estimated share of inputs on which it fires", True),
+    "zero_weights": Look("all-zero incoming weights", "#5c6470", "cross", "✚"),
+    "duplicate": Look("duplicate of another unit", "#3f6212", "star-square", "▣"),
 }
 
 #: Looks handed to checks the table does not name, chosen by a stable hash of the id.

@@ -12,6 +12,7 @@ import numpy as np
 
 from actdoc.model import (
     CAVEAT,
+    PROBE_LAYER,
     RECTIFIED_KINDS,
     SQUASHING_KINDS,
     ActivationKind,
@@ -19,9 +20,10 @@ from actdoc.model import (
     Findings,
     LayerReport,
 )
-from actdoc.reports.document import finding_entry, layer_entry, ordered_findings, verdict
+from actdoc.reports.document import (finding_entry, layer_entry, ordered_findings, probe_entry,
+                                     verdict)
 from actdoc.formatting import plain
-from actdoc.web import explain, figures, looks, unitcard
+from actdoc.web import explain, figures, gradflow, looks, unitcard
 from actdoc.web.unitmap import unit_map
 
 #: Findings listed on the model overview, most serious first.
@@ -38,13 +40,28 @@ WEIGHTS_ONLY_NOTE = ("The dump holds no recorded total inputs or outputs for thi
                      "the checks of its incoming weights apply.")
 #: The unit roster's measures per kind, after "unit" and "state": the ones that tell the
 #: kind's failure modes apart, so the table fits a 1280 px window. The unit card shows all.
+#: Columns a layer lacks (no dL/dz stored, not a spatial layer, no saturated unit) drop out.
 ROSTER_COLUMNS = {
-    "rectified": ("active_fraction", "mean", "std", "max", "dormant_score", "gradient_gain"),
-    "switching": ("active_fraction", "mean", "std", "bimodality"),
-    "squashing": ("mean", "std", "low_fraction", "high_fraction", "linear_fraction",
-                  "bimodality", "gradient_gain"),
-    "other": ("mean", "std", "min", "max", "gradient_gain"),
+    "rectified": ("active_fraction", "sample_active_fraction", "mean", "std", "max",
+                  "dormant_score", "gradient_gain", "gradient_rms"),
+    "switching": ("active_fraction", "sample_active_fraction", "mean", "std", "bimodality",
+                  "gradient_rms"),
+    "squashing": ("mean", "std", "low_fraction", "high_fraction", "saturation_side",
+                  "linear_fraction", "bimodality", "gradient_gain", "gradient_rms"),
+    "other": ("mean", "std", "min", "max", "gradient_gain", "gradient_rms"),
 }
+#: Headings for unit-table columns whose id does not read as words (the rest: "_" -> " ").
+COLUMN_LABELS = {
+    "sample_active_fraction": "samples fired on",
+    "saturation_side": "saturated side",
+    "gradient_rms": "gradient RMS",
+    "nonfinite": "NaN/inf count",
+}
+
+
+def column_label(column: str) -> str:
+    """A unit-table column's heading on the roster and the unit card."""
+    return COLUMN_LABELS.get(column, column.replace("_", " "))
 
 
 def roster_columns(kind: ActivationKind) -> tuple[str, ...]:
@@ -59,7 +76,10 @@ def roster_columns(kind: ActivationKind) -> tuple[str, ...]:
 
 
 def findings_for_page(findings: Findings, entries: list) -> list[dict[str, Any]]:
-    """Findings as the document writes them, plus the layer's index for links."""
+    """Findings as the document writes them, plus the layer's index for links (None for a
+    finding about the probe batch, or any ``layer`` that is no layer of the model: such a
+    finding gets no layer link) and its related findings as links (``related_links``: the
+    findings of those checks on the same layer, each with its anchor)."""
     index = {report.name: report.info.index for report in findings.layers}
     out = []
     for finding in entries:
@@ -67,9 +87,50 @@ def findings_for_page(findings: Findings, entries: list) -> list[dict[str, Any]]
         entry["unit_count"] = len(entry["units"])
         entry["units"] = entry["units"][:MAX_LISTED_UNITS]
         entry["layer_index"] = index.get(finding.layer)
+        entry["probe"] = finding.layer == PROBE_LAYER
         entry["look"] = looks.as_dict(finding.check)
+        entry["anchor"] = finding_anchor(finding.check)
+        named = {f.check for f in findings.for_layer(finding.layer)}
+        entry["related_links"] = [
+            {"check": check, "label": looks.label(check), "anchor": finding_anchor(check)}
+            for check in finding.related if check in named and check != finding.check]
         out.append(entry)
     return out
+
+
+def finding_anchor(check: str) -> str:
+    """The id of a finding's block on its layer page (one finding per check and layer)."""
+    return "finding-" + looks.css_name(check)
+
+
+def layer_gradient_rms(report: LayerReport) -> float | None:
+    """RMS of dL/dz over the whole layer, pooled from the per-unit RMS weighted by each unit's
+    observations (None without a stored gradient): sqrt(sum n_u rms_u^2 / sum n_u)."""
+    rms = report.unit_table.get("gradient_rms")
+    if rms is None:
+        return None
+    rms = np.asarray(rms, dtype=np.float64)
+    counts = np.asarray(report.unit_table.get("observations", np.ones(rms.size)),
+                        dtype=np.float64)
+    keep = np.isfinite(rms) & (counts > 0)
+    if not keep.any():
+        return None
+    return float(np.sqrt(np.sum(counts[keep] * rms[keep] ** 2) / np.sum(counts[keep])))
+
+
+def gradient_depth(findings: Findings) -> list[dict[str, Any]] | None:
+    """Each layer's gradient RMS and its ratio to the last layer with one (the gradient_flow
+    check's reference), input side first; None when the dump stores no gradient."""
+    values = [(report, layer_gradient_rms(report)) for report in findings.layers]
+    measured = [value for _report, value in values if value is not None]
+    if not measured:
+        return None
+    top = measured[-1]
+    flagged = {f.layer: f.severity.value for f in findings.findings
+               if f.check == "gradient_flow"}
+    return [{"index": report.info.index, "name": report.name, "rms": value,
+             "ratio": None if value is None or not top else value / top,
+             "finding": flagged.get(report.name)} for report, value in values]
 
 
 def layer_summary(report: LayerReport) -> dict[str, Any]:
@@ -77,6 +138,7 @@ def layer_summary(report: LayerReport) -> dict[str, Any]:
     entry = layer_entry(report)
     entry["spatial_shape"] = list(report.info.spatial_shape)
     entry["has_weights"] = report.weights is not None
+    entry["gradient_rms"] = layer_gradient_rms(report)
     return entry
 
 
@@ -89,6 +151,12 @@ def overview(findings: Findings) -> dict[str, Any]:
     checks: list[str] = []
     for report in findings.layers:
         checks += [check for check in report.fractions if check not in checks]
+    gradients = gradient_depth(findings)
+    terms = ("gradient gain", "output scale") + (("gradient RMS",) if gradients else ())
+    probe = probe_entry(findings.probe)
+    if probe is not None:
+        probe["findings"] = findings_for_page(findings, [
+            f for f in ranked if f.layer == PROBE_LAYER])
     return {
         "source": plain(findings.source.__dict__),
         "checks": checks,
@@ -99,14 +167,20 @@ def overview(findings: Findings) -> dict[str, Any]:
         "finding_count": len(findings.findings),
         "check_labels": {check: looks.label(check) for check in checks},
         "figures": {"depth": figures.depth_fractions(findings, checks),
-                    "signal": figures.depth_signal(findings)},
-        "explain": explain.explained(findings.settings, ("gradient gain", "output scale")),
+                    "signal": figures.depth_signal(findings),
+                    "gradient": gradflow.depth_gradient(gradients, findings.settings)},
+        "gradients": gradients,
+        "probe": probe,
+        "explain": explain.explained(findings.settings, terms),
         "caveat": findings.caveat or CAVEAT,
     }
 
 
 def _all_missing(values: np.ndarray) -> bool:
-    """A numeric column with no finite value (the measure does not apply to this kind)."""
+    """A numeric column with no finite value (the measure does not apply to this kind), or a
+    label column with no label (no unit of the layer carries one)."""
+    if values.dtype.kind in "US":
+        return not np.any(values.astype(str) != "")
     return values.dtype.kind == "f" and not np.isfinite(values).any()
 
 
@@ -155,7 +229,7 @@ def unit_rows(report: LayerReport, *, sort: str = "unit", descending: bool = Fal
     page = max(1, min(page, pages))
     shown = ordered[(page - 1) * per_page: page * per_page]
     rows = [{column: plain(table[column][i]) for column in columns} for i in shown]
-    return {"columns": columns, "rows": rows, "page": page, "pages": pages,
+    return {"columns": columns, "labels": {c: column_label(c) for c in columns}, "rows": rows, "page": page, "pages": pages,
             "per_page": per_page, "total": int(ordered.size), "sort": sort,
             "descending": descending, "state": state or "", "finding": finding or "",
             "finding_label": looks.label(finding) if finding else "",
@@ -228,5 +302,6 @@ def unit_detail(findings: Findings, dump: Dump, report: LayerReport, unit: int) 
     with np.errstate(over="ignore", invalid="ignore"):
         payload = unitcard.unit_detail(findings, dump, report, unit, findings_for_page)
     payload["layer"] = layer_summary(report)
+    payload["labels"] = {column: column_label(column) for column in payload["row"]}
     payload["explain"] = explain.explained(findings.settings)
     return payload
