@@ -62,4 +62,4 @@ def depth_gradient(rows: Sequence[Mapping[str, Any]] | None,
         legend={"x": 0, "xanchor": "left", "y": -0.32, "yanchor": "top"},
         margin={"b": 96},
         annotations=notes, yaxis=log_axis(shown, "RMS of dL/dz (log scale)"),
-        xaxis={"type": "category", "automargin": True, "title": {"text": "layer"}})}
+        xaxis={"type": "category", "automargin": True})}  # the ticks name the layers
