@@ -1,7 +1,7 @@
 """Recording a PyTorch model's layers on a probe batch into an actdoc dump (extra ``actdoc[torch]``).
 
-``capture(model, probe, "probe.h5")`` runs ``model`` over the probe in eval mode without
-gradients and writes, for every ``nn.Linear`` and ``nn.Conv1d/2d/3d``, its total input ``z`` (the
+``capture(model, probe, "probe.h5")`` runs ``model`` over the probe in eval mode (without
+gradients unless a loss is given, see below) and writes, for every ``nn.Linear`` and ``nn.Conv1d/2d/3d``, its total input ``z`` (the
 module's output), the output ``y = f(z)`` of the activation applied directly to it, and the
 module's own weight and bias (docs/dump-layout.md, "Recording a PyTorch model").
 
