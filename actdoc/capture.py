@@ -1,9 +1,10 @@
 """Recording a PyTorch model's layers on a probe batch into an actdoc dump (extra ``actdoc[torch]``).
 
 ``capture(model, probe, "probe.h5")`` runs ``model`` over the probe in eval mode (without
-gradients unless a loss is given, see below) and writes, for every ``nn.Linear`` and ``nn.Conv1d/2d/3d``, its total input ``z`` (the
-module's output), the output ``y = f(z)`` of the activation applied directly to it, and the
-module's own weight and bias (docs/dump-layout.md, "Recording a PyTorch model").
+gradients unless a loss is given, see below) and writes, for every ``nn.Linear`` and
+``nn.Conv1d/2d/3d``, its total input ``z`` (the module's output), the output ``y = f(z)`` of the
+activation applied directly to it, and the module's own weight and bias (docs/dump-layout.md,
+"Recording a PyTorch model").
 
 How the activation is found: a forward hook on each Linear/Conv module keeps a copy of its output
 (copied at once, so an in-place activation that later overwrites the tensor cannot change what is
