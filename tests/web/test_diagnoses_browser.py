@@ -110,3 +110,30 @@ def test_probe_findings_and_saturated_side(browser, site, width):
     shoot(page.locator("#units"), "roster-sides", width)
     assert page.errors == []
     page.close()
+
+
+WCAG_21_AA = ["wcag2a", "wcag2aa", "wcag21a", "wcag21aa"]
+
+
+@pytest.mark.parametrize("width", WIDTHS)
+def test_axe_finds_no_wcag_21_violation_in_the_new_panels(browser, site, width):
+    """axe-core (Deque, bundled in axe-playwright-python) with the WCAG 2.1 A and AA rules on
+    the pages that carry the probe panel, the gradient chart and its table (folded open), the
+    related links and the new roster columns."""
+    from axe_playwright_python.sync_playwright import Axe
+
+    base, ids = site
+    grad, tanh = ids["deep_logistic_grad.h5"], ids["tanh_raw_inputs.h5"]
+    page = open_page(browser, width)
+    found = {}
+    for path in (f"/dumps/{grad}", f"/dumps/{grad}/layers/0", f"/dumps/{grad}/layers/0/units/3",
+                 f"/dumps/{tanh}", f"/dumps/{tanh}/layers/0"):
+        page.goto(base + path)
+        if page.locator(".chart").count():
+            page.wait_for_selector(".chart svg.main-svg", timeout=30_000)
+        page.evaluate("document.querySelectorAll('main details').forEach(d => d.open = true)")
+        results = Axe().run(page, options={"runOnly": {"type": "tag", "values": WCAG_21_AA}})
+        if results.violations_count:
+            found[path] = results.generate_report()
+    page.close()
+    assert not found, "\n".join(f"{path}: {report}" for path, report in found.items())
