@@ -15,6 +15,7 @@ import tempfile
 from pathlib import Path
 
 from actdoc.errors import ActdocError
+from actdoc.escaping import CONTROL
 
 #: Bytes copied per write while streaming an upload from a plain stream.
 COPY_BLOCK_BYTES = 1024 * 1024
@@ -35,10 +36,13 @@ def _clip_utf8(text: str, max_bytes: int) -> str:
 
 
 def safe_file_name(name: str | None) -> str:
-    """The last path part of an uploaded name, without control or path characters, at most
-    MAX_NAME_BYTES long in UTF-8 (a long name loses the end of its stem, not its ending)."""
+    """The last path part of an uploaded name, without path characters and without the control
+    characters of actdoc.escaping (ECMA-48's C0, DEL and C1, the Unicode line separators and the
+    bidirectional controls), at most MAX_NAME_BYTES long in UTF-8 (a long name loses the end of
+    its stem, not its ending). The stored name then shows in logs, pages and downloads as sent,
+    minus what could recolour a terminal or reorder what a reader sees."""
     base = re.split(r"[\\/]", name or "")[-1]
-    base = re.sub(r"[\x00-\x1f\x7f]", "", base).strip().lstrip(".")
+    base = CONTROL.sub("", base).strip().lstrip(".")
     if len(base.encode("utf-8")) > MAX_NAME_BYTES:
         stem, dot, ending = base.rpartition(".")
         ending = _clip_utf8(ending, 16) if dot and stem else ""

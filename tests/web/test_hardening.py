@@ -34,6 +34,24 @@ def test_names_with_nul_dots_and_separators_stay_inside_the_workspace(tmp_path):
         spool.discard()
 
 
+def test_stored_names_lose_c1_and_bidirectional_controls(client, workspace, planted_dump):
+    """ECMA-48 (5th edition) section 5: C1 controls U+0080-U+009F include the 8-bit CSI
+    (U+009B) and OSC (U+009D) that terminals obey like ESC [ and ESC ]; Unicode's bidirectional
+    controls (U+202A-U+202E, U+2066-U+2069, U+200E/U+200F; CVE-2021-42574, "Trojan Source")
+    make a name read differently from its bytes. None of them may reach a stored name."""
+    from actdoc.escaping import CONTROL
+
+    sent = "a\x9b31mb\x9d0;x\x07\u202egp.\u2066h5\u2069\x85c\u2028d\u200f.h5"
+    assert intake.safe_file_name(sent) == "a31mb0;xgp.h5cd.h5"
+    response = post_file(client, planted_dump, name=sent)
+    assert response.status_code == 201, response.get_json()
+    stored = response.get_json()["name"]
+    assert stored == "a31mb0;xgp.h5cd.h5" and not CONTROL.search(stored)
+    assert workspace.dump_path(workspace.get(response.get_json()["id"])).name == stored
+    # Printable text beyond Latin-1 is kept as sent.
+    assert intake.safe_file_name("模型 ünïcode.h5") == "模型 ünïcode.h5"
+
+
 def test_the_same_bytes_uploaded_twice_at_once_keep_the_stored_file(tmp_path, planted_dump,
                                                                      monkeypatch):
     """Upload B's format is being sniffed while upload A of the same bytes is stored in full:
