@@ -35,6 +35,7 @@ from pathlib import Path
 from typing import Callable
 
 import actdoc
+from actdoc.escaping import visible, visible_lines
 from actdoc.io.limits import ReadLimits
 
 log = logging.getLogger(__name__)
@@ -156,9 +157,11 @@ def run(job: Job, limits: JobLimits, name: str, *,
                 process.stdin.close()
         if log_failures and not outcome.ok:
             err.seek(max(0, err.seek(0, os.SEEK_END) - STDERR_TAIL_BYTES))
-            tail = err.read().decode("utf-8", "replace").strip()
-            log.warning("confined job on %s ended %s: %s%s", name, outcome.state,
-                        outcome.message, f"\nchild's stderr (tail):\n{tail}" if tail else "")
+            # The child's words may quote the file (names, attributes): shown escaped.
+            tail = visible_lines(err.read().decode("utf-8", "replace").strip())
+            log.warning("confined job on %s ended %s: %s%s", visible(name), outcome.state,
+                        visible(outcome.message),
+                        f"\nchild's stderr (tail):\n{tail}" if tail else "")
     return outcome
 
 

@@ -14,6 +14,7 @@ from flask import Flask, jsonify, make_response, render_template, request
 from werkzeug.exceptions import HTTPException
 
 from actdoc.errors import ActdocError, DumpTooLarge, IncomparableDumps, UnsupportedFormat
+from actdoc.escaping import visible
 from actdoc.workspace import NotReady, UnknownDump, UploadTooLarge
 
 log = logging.getLogger(__name__)
@@ -66,7 +67,9 @@ def wants_json() -> bool:
 def handle(error: BaseException):
     status, message = status_and_message(error)
     if status >= 500:
-        log.error("request %s %s failed", request.method, request.path, exc_info=error)
+        # The path arrives URL-decoded (%1b is ESC): shown escaped, it cannot drive the console.
+        log.error("request %s %s failed", visible(request.method), visible(request.path),
+                  exc_info=error)
     if wants_json():
         response = jsonify({"error": message})
     else:

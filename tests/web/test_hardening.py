@@ -75,3 +75,22 @@ def test_the_same_bytes_uploaded_twice_at_once_keep_the_stored_file(tmp_path, pl
     assert store.dump_path(record).read_bytes() == data
     assert [r.id for r in store.list()] == [record.id]
     assert list((store.root / "tmp").iterdir()) == []
+
+
+def test_the_server_log_shows_a_decoded_path_with_its_escapes_visible(client, workspace,
+                                                                       monkeypatch, caplog):
+    """The request path arrives URL-decoded, so ``%1b]0;x%07`` would reach the console as
+    ECMA-48's OSC sequence (ESC ] ... BEL, which retitles a terminal window) and ``%9b`` as the
+    8-bit CSI. The log of a failed request shows them as escapes and stays on one line."""
+    import logging
+
+    def broken(_dump_id):
+        raise RuntimeError("planted failure")
+
+    monkeypatch.setattr(workspace, "get", broken)
+    with caplog.at_level(logging.ERROR, logger="actdoc.web.errors"):
+        response = client.get("/dumps/a%1b]0;owned%07b%0a%c2%9b31m")
+    assert response.status_code == 500
+    [record] = [r for r in caplog.records if r.name == "actdoc.web.errors"]
+    line = record.getMessage()
+    assert line == "request GET /dumps/a\\x1b]0;owned\\x07b\\n\\x9b31m failed"
