@@ -65,9 +65,14 @@ def limit_memory(budget: int | None, target: str) -> None:
 
 
 def run(job: dict, emit) -> None:
+    """Do the job as ``actdoc analyze`` would (``cluster.analyze_target``), with the job's read
+    limits: a single file is opened with them and, when it holds weights only and a
+    ``/probe/input`` its dense chain starts from (or a probe is given), analysed over the forward
+    pass, so an upload gets the findings the command line gives for the same file."""
     from actdoc.analysis import analyze
     from actdoc.analysis.defaults import load_settings
     from actdoc.cluster import analyze_target, is_sharded
+    from actdoc.forward import with_forward_pass
     from actdoc.io import ReadLimits, open_dump
     from actdoc.model import SourceInfo
     from actdoc.reports import save_findings
@@ -83,9 +88,10 @@ def run(job: dict, emit) -> None:
             last[0] = fraction
             emit(event="progress", fraction=float(fraction))
 
-    forward = job.get("probe") is not None or job.get("synthetic_probe") is not None
-    if job.get("scheduler") or is_sharded(target) or forward:
-        emit(event="checked", format="shards" if not forward else "weights", layers=0, samples=0)
+    # A stored upload (it has its digest) is one file whatever its name looks like.
+    shards = not job.get("source_sha256") and (job.get("scheduler") or is_sharded(target))
+    if shards:
+        emit(event="checked", format="shards", layers=None, samples=None)
         findings = analyze_target(target, settings, scheduler=job.get("scheduler"),
                                   progress=progress, activations=job.get("activations") or (),
                                   workers=job.get("workers"), digest=bool(job.get("digest")),
@@ -93,19 +99,24 @@ def run(job: dict, emit) -> None:
                                   synthetic_probe=job.get("synthetic_probe"), limits=limits)
     else:
         with open_dump(target, activations=job.get("activations") or (),
-                       limits=limits) as dump:
-            emit(event="checked", format=dump.format, layers=len(dump.layers),
-                 samples=dump.samples)
-            if not job.get("archive"):
-                emit(event="done")
-                return
-            source = None
-            if job.get("source_sha256"):
-                source = SourceInfo(file=job.get("source_file") or Path(target).name,
-                                    sha256=job["source_sha256"], format=dump.format,
-                                    samples=dump.samples)
-            findings = analyze(dump, settings, progress=progress, source=source,
-                               workers=job.get("workers"), digest=bool(job.get("digest")))
+                       limits=limits) as opened:
+            dump = with_forward_pass(opened, job.get("probe"), job.get("synthetic_probe"))
+            try:
+                emit(event="checked", format=dump.format, layers=len(dump.layers),
+                     samples=dump.samples)
+                if not job.get("archive"):
+                    emit(event="done")
+                    return
+                source = None
+                if job.get("source_sha256"):
+                    source = SourceInfo(file=job.get("source_file") or Path(target).name,
+                                        sha256=job["source_sha256"], format=dump.format,
+                                        samples=dump.samples)
+                findings = analyze(dump, settings, progress=progress, source=source,
+                                   workers=job.get("workers"), digest=bool(job.get("digest")))
+            finally:
+                if dump is not opened:
+                    dump.close()
     save_findings(findings, job["archive"])
     emit(event="done")
 
