@@ -111,6 +111,11 @@ def build_parser() -> argparse.ArgumentParser:
                        help="time allowed to measure one upload (default: 1800)")
     serve.add_argument("--memory-limit", type=int, default=4096, metavar="MB",
                        help="memory allowed to check and measure one upload (default: 4096)")
+    serve.add_argument("--check-slot", action=argparse.BooleanOptionalAction, default=True,
+                       help="check new uploads in a child of their own while an analysis runs "
+                            "(default; --no-check-slot: the analysis slots check too)")
+    serve.add_argument("--analysis-slots", type=int, default=1, metavar="N",
+                       help="dumps analysed at once, each in its own child (default 1)")
     serve.add_argument("--read-limit", action="append", default=[], metavar="NAME=VALUE",
                        help="change one limit on what an upload may declare: member_bytes, "
                             "total_bytes, units_per_layer, weight_bytes (a number or 'none')")
@@ -309,15 +314,17 @@ def cmd_serve(args: argparse.Namespace) -> int:
     from actdoc.confine import JobLimits
     from actdoc.web import serve
 
-    if min(args.max_upload, args.check_time, args.analysis_time, args.memory_limit) <= 0:
-        raise ActdocError("--max-upload, --check-time, --analysis-time and --memory-limit "
-                          "must be positive")
+    if min(args.max_upload, args.check_time, args.analysis_time, args.memory_limit,
+           args.analysis_slots) <= 0:
+        raise ActdocError("--max-upload, --check-time, --analysis-time, --memory-limit and "
+                          "--analysis-slots must be positive")
     job_limits = JobLimits(check_seconds=args.check_time, analysis_seconds=args.analysis_time,
                            memory_mb=args.memory_limit)
     try:
         serve(host=args.host, port=args.port, workspace=args.workspace, demo=args.demo,
               token=args.token, max_upload_bytes=args.max_upload * 1024**2,
-              read_limits=_read_limits(args.read_limit), job_limits=job_limits)
+              read_limits=_read_limits(args.read_limit), job_limits=job_limits,
+              check_slot=args.check_slot, analysis_slots=args.analysis_slots)
     except OSError as err:
         raise ActdocError(f"cannot serve the dashboard on {args.host}:{args.port}: "
                           f"{err.strerror or err}") from None

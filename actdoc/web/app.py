@@ -60,13 +60,15 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
                token: str | None = None,
                max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES,
                read_limits: ReadLimits | None = None,
-               job_limits: JobLimits | None = None) -> Flask:
+               job_limits: JobLimits | None = None, check_slot: bool = True,
+               analysis_slots: int = 1) -> Flask:
     """Build the dashboard for the workspace in ``workspace_dir`` (default: the per-user one).
 
     ``token``, when given, is required on every request (``Authorization: Bearer``, or once as
     ``?token=`` which then sets a cookie). ``demo`` adds the bundled demo dumps to the workspace.
     ``read_limits`` (default ``ReadLimits.for_uploads()``) bound what an uploaded file may
-    declare; ``job_limits`` the time and memory of each confined check and analysis
+    declare; ``job_limits`` the time and memory of each confined check and analysis;
+    ``check_slot`` and ``analysis_slots`` how many of them run at once
     (docs/dashboard.md).
     """
     app = Flask("actdoc", template_folder=str(asset_folder("templates")),
@@ -81,7 +83,8 @@ def create_app(workspace_dir: str | Path | None = None, *, demo: bool = False,
     workspace = Workspace(workspace_dir or default_workspace_dir(),
                           max_upload_bytes=max_upload_bytes,
                           read_limits=read_limits or ReadLimits.for_uploads(),
-                          job_limits=job_limits)
+                          job_limits=job_limits, check_slot=check_slot,
+                          analysis_slots=analysis_slots)
     app.extensions["actdoc"] = State(workspace, demo)
 
     app.jinja_env.filters.update(embed_json=embed_json, first_sentence=first_sentence,

@@ -82,6 +82,7 @@ def serve(host: str = "127.0.0.1", port: int = DEFAULT_PORT,
           workspace: str | Path | None = None, demo: bool = False, token: str | None = None,
           *, max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES,
           read_limits: ReadLimits | None = None, job_limits: JobLimits | None = None,
+          check_slot: bool = True, analysis_slots: int = 1,
           out: TextIO = sys.stdout) -> None:
     """Serve the dashboard with waitress until interrupted, printing its address first.
 
@@ -90,7 +91,8 @@ def serve(host: str = "127.0.0.1", port: int = DEFAULT_PORT,
     """
     token = resolve_token(host, token)
     app = create_app(workspace, demo=demo, token=token, max_upload_bytes=max_upload_bytes,
-                     read_limits=read_limits, job_limits=job_limits)
+                     read_limits=read_limits, job_limits=job_limits, check_slot=check_slot,
+                     analysis_slots=analysis_slots)
     server = create_server(app, host=host, port=port)
     print(f"actdoc dashboard on {address(host, server.effective_port, token)}", file=out)
     if token:

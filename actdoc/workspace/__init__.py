@@ -45,13 +45,17 @@ class Workspace:
     """A folder of uploaded dumps, their catalog and their cached findings.
 
     ``read_limits`` bound what an uploaded file may declare (the readers refuse past them);
-    ``job_limits`` bound the time and memory of each confined check and analysis. Opening a
-    workspace that no other live process uses first removes what an interrupted run left.
-    ``start()`` starts the background runner; until then uploads stay ``queued``.
+    ``job_limits`` bound the time and memory of each confined check and analysis. With
+    ``check_slot`` new uploads are checked in a child of their own while analyses run, and
+    ``analysis_slots`` dumps are analysed at once (runner.py); each child may take
+    ``job_limits.memory_mb``.
+    Opening a workspace that no other live process uses first removes what an interrupted run
+    left. ``start()`` starts the background runner; until then uploads stay ``queued``.
     """
 
     def __init__(self, root: str | Path, *, max_upload_bytes: int = DEFAULT_MAX_UPLOAD_BYTES,
-                 read_limits: ReadLimits | None = None, job_limits: JobLimits | None = None):
+                 read_limits: ReadLimits | None = None, job_limits: JobLimits | None = None,
+                 check_slot: bool = True, analysis_slots: int = 1):
         self.root = Path(root).expanduser()
         self.max_upload_bytes = max_upload_bytes
         self.read_limits = read_limits
@@ -66,7 +70,8 @@ class Workspace:
             raise ActdocError(f"cannot use the workspace folder {self.root}: {reason}") from None
         self.cache = FindingsCache()
         self.runner = Runner(self.catalog, self.store, self.cache, read_limits,
-                             job_limits or JobLimits())
+                             job_limits or JobLimits(), check_slot=check_slot,
+                             analysis_slots=analysis_slots)
         #: Held while an upload moves into ``dumps/`` and enters the catalog.
         self._store_lock = threading.Lock()
 
@@ -144,8 +149,14 @@ class Workspace:
         self.runner.start()
 
     def submit(self, dump_id: str) -> None:
-        """Queue a stored dump for the background runner."""
+        """Queue a stored dump for the background runner (its check first)."""
         self.runner.submit(dump_id)
+
+    def check(self, dump_id: str) -> DumpRecord:
+        """Open and validate one queued dump now, in a confined child (no measuring); ends
+        ``failed``, or ``queued`` with its layers and samples known (and queued for analysis
+        once the runner has started)."""
+        return self.runner.check(dump_id)
 
     def analyse(self, dump_id: str) -> DumpRecord:
         """Check and analyse one dump now, in a confined child; ends ``ready`` or ``failed``."""

@@ -10,6 +10,9 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 STATUSES = ("queued", "analysing", "ready", "failed")
+#: How far the readers got with a dump: ``waiting`` (not opened yet), ``checking`` (a child is
+#: opening and validating it), ``checked`` (its layer count, samples and format are known).
+PHASES = ("waiting", "checking", "checked")
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS dumps (
@@ -27,12 +30,17 @@ CREATE TABLE IF NOT EXISTS dumps (
     critical  INTEGER,
     warning   INTEGER,
     healthy   INTEGER,
-    attempts  INTEGER NOT NULL DEFAULT 0
+    attempts  INTEGER NOT NULL DEFAULT 0,
+    phase     TEXT NOT NULL DEFAULT 'waiting'
 )
 """
 
 #: Columns added after the first release, with their definitions: older catalogs gain them.
-_ADDED_COLUMNS = {"attempts": "INTEGER NOT NULL DEFAULT 0"}
+_ADDED_COLUMNS = {"attempts": "INTEGER NOT NULL DEFAULT 0",
+                  "phase": "TEXT NOT NULL DEFAULT 'waiting'"}
+#: What an older catalog's rows get when a column is added: a dump whose layers were counted
+#: (every ready one) had been checked.
+_BACKFILL = {"phase": "UPDATE dumps SET phase = 'checked' WHERE status = 'ready' OR layers > 0"}
 
 
 class UnknownDump(LookupError):
@@ -57,8 +65,9 @@ class NotReady(RuntimeError):
 
 @dataclass(frozen=True)
 class DumpRecord:
-    """One catalog row. ``attempts`` counts the analyses started for it (the runner gives up
-    after a few that never finished)."""
+    """One catalog row. ``attempts`` counts the checks and analyses started for it that never
+    ended with an answer (the runner gives up after a few); ``phase`` is one of PHASES: until it
+    is ``checked``, ``layers`` and ``samples`` are unknown (stored as 0, shown as unknown)."""
 
     id: str
     name: str
@@ -75,10 +84,28 @@ class DumpRecord:
     warning: int | None
     healthy: int | None
     attempts: int = 0
+    phase: str = "waiting"
 
     @property
     def ready(self) -> bool:
         return self.status == "ready"
+
+    @property
+    def checked(self) -> bool:
+        """Whether the readers have opened the file and its layers and samples are known."""
+        return self.phase == "checked"
+
+    @property
+    def stage(self) -> str:
+        """Where the dump is, in the words the pages show: "waiting to be checked",
+        "checking", "waiting for analysis", "analysing", "ready" or "failed"."""
+        if self.status in ("ready", "failed"):
+            return self.status
+        if self.phase == "checking":
+            return "checking"
+        if self.phase != "checked":
+            return "waiting to be checked"
+        return "analysing" if self.status == "analysing" else "waiting for analysis"
 
     def to_dict(self) -> dict:
         """The object the HTTP API returns for a dump (docs/contract.md section 6, with extras)."""
@@ -89,8 +116,10 @@ class DumpRecord:
         return {
             "id": self.id, "name": self.name, "status": self.status,
             "progress": round(self.progress, 4), "error": self.error, "sha256": self.sha256,
-            "size": self.size, "format": self.format, "layers": self.layers,
-            "samples": self.samples,
+            "size": self.size, "format": self.format,
+            "layers": self.layers if self.checked else None,
+            "samples": self.samples if self.checked else None,
+            "checked": self.checked, "stage": self.stage,
             "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(self.created)),
             "verdicts": verdicts,
         }
@@ -109,6 +138,8 @@ class Catalog:
             for column, definition in _ADDED_COLUMNS.items():
                 if column not in present:
                     db.execute(f"ALTER TABLE dumps ADD COLUMN {column} {definition}")
+                    if column in _BACKFILL:
+                        db.execute(_BACKFILL[column])
 
     def _connect(self) -> sqlite3.Connection:
         db = sqlite3.connect(self.path, timeout=30)
@@ -155,14 +186,33 @@ class Catalog:
                        (*values.values(), dump_id))
 
     def claim(self, dump_id: str) -> int:
-        """Mark a queued dump ``analysing`` and count the attempt; returns the attempts so far."""
+        """Mark a queued dump ``analysing`` (and ``checking``, unless already checked) and count
+        the attempt; returns the attempts so far."""
         with closing(self._connect()) as db, db:
             db.execute("UPDATE dumps SET status = 'analysing', progress = 0, error = NULL, "
+                       "attempts = attempts + 1, phase = CASE phase WHEN 'checked' "
+                       "THEN 'checked' ELSE 'checking' END WHERE id = ?", (dump_id,))
+            row = db.execute("SELECT attempts FROM dumps WHERE id = ?", (dump_id,)).fetchone()
+        if row is None:
+            raise UnknownDump(dump_id)
+        return int(row["attempts"])
+
+    def claim_check(self, dump_id: str) -> int:
+        """Mark a queued dump ``checking`` (it stays ``queued``) and count the attempt; returns
+        the attempts so far."""
+        with closing(self._connect()) as db, db:
+            db.execute("UPDATE dumps SET phase = 'checking', error = NULL, "
                        "attempts = attempts + 1 WHERE id = ?", (dump_id,))
             row = db.execute("SELECT attempts FROM dumps WHERE id = ?", (dump_id,)).fetchone()
         if row is None:
             raise UnknownDump(dump_id)
         return int(row["attempts"])
+
+    def end_check(self, dump_id: str) -> None:
+        """A check that ended with the readers' answer is no attempt that never finished."""
+        with closing(self._connect()) as db, db:
+            db.execute("UPDATE dumps SET attempts = MAX(attempts - 1, 0) WHERE id = ?",
+                       (dump_id,))
 
     def delete(self, dump_id: str) -> None:
         with closing(self._connect()) as db, db:

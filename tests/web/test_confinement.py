@@ -170,7 +170,8 @@ def test_the_upload_request_never_runs_the_readers(workspace_dir, planted_dump, 
           f"{1000 * (time.monotonic() - started):.0f} ms")
     body = response.get_json()
     assert response.status_code == 201 and body["status"] == "queued"
-    assert body["layers"] == 0  # not read yet
+    assert body["layers"] is None and body["samples"] is None  # not read yet
+    assert body["checked"] is False and body["stage"] == "waiting to be checked"
     done = wait_until_done(client, body["id"])
     assert done["status"] == "ready" and done["layers"] == 3 and done["samples"] == 240
 
@@ -221,11 +222,14 @@ def test_serve_options_reach_the_app(monkeypatch):
     monkeypatch.setattr(actdoc.web, "serve", lambda **kwargs: seen.update(kwargs))
     assert main(["serve", "--max-upload", "5", "--check-time", "7", "--analysis-time", "90",
                  "--memory-limit", "300", "--read-limit", "units_per_layer=none",
-                 "--read-limit", "weight_bytes=1024"]) == 0
+                 "--read-limit", "weight_bytes=1024", "--no-check-slot",
+                 "--analysis-slots", "2"]) == 0
     assert seen["max_upload_bytes"] == 5 * 1024**2
+    assert seen["check_slot"] is False and seen["analysis_slots"] == 2
     assert seen["job_limits"] == JobLimits(check_seconds=7, analysis_seconds=90, memory_mb=300)
     uploads = ReadLimits.for_uploads()
     assert seen["read_limits"] == ReadLimits(member_bytes=uploads.member_bytes,
                                              total_bytes=uploads.total_bytes,
                                              units_per_layer=None, weight_bytes=1024)
     assert main(["serve", "--read-limit", "colour=3"]) == 2
+    assert main(["serve", "--analysis-slots", "0"]) == 2
