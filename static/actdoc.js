@@ -88,12 +88,13 @@
     });
   }
 
-  /* Progress bars poll the dump's JSON and reload the page once the analysis has ended. */
+  /* Progress bars poll the dump's JSON and reload the page once the analysis has ended, or
+     once the check has read the file (its layers and samples then show). */
   function followProgress() {
     var bars = document.querySelectorAll("[data-poll]");
     if (!bars.length) return;
     function poll() {
-      var pending = 0;
+      var pending = 0, newlyChecked = 0;
       var requests = Array.prototype.map.call(bars, function (bar) {
         return fetch(bar.dataset.poll, { headers: { Accept: "application/json" } })
           .then(function (response) { return response.json(); })
@@ -101,12 +102,14 @@
             var fill = bar.querySelector(".progress > div");
             var label = bar.querySelector(".progress-label");
             if (fill) fill.style.width = Math.round(dump.progress * 100) + "%";
-            if (label) label.textContent = dump.status + " · " + Math.round(dump.progress * 100) + "%";
+            if (label) label.textContent = dump.stage + (dump.stage === "analysing"
+              ? " · " + Math.round(dump.progress * 100) + "%" : "");
             if (dump.status === "queued" || dump.status === "analysing") pending += 1;
+            if (dump.checked && bar.dataset.checked === "no") newlyChecked += 1;
           });
       });
       Promise.all(requests).then(function () {
-        if (pending) window.setTimeout(poll, 600); else window.location.reload();
+        if (pending && !newlyChecked) window.setTimeout(poll, 600); else window.location.reload();
       }).catch(function () { window.setTimeout(poll, 2000); });
     }
     window.setTimeout(poll, 400);
