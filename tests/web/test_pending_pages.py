@@ -78,3 +78,55 @@ def test_a_refused_dump_shows_its_one_sentence(held, broken_dump):
     assert "· hdf5 · not read</p>" in survey
     twin = client.get(f"{dump['page']}?format=json").get_json()
     assert twin["dump"]["layers"] is None and twin["dump"]["stage"] == "failed"
+
+
+@pytest.mark.browser
+def test_the_shelf_in_a_browser_follows_the_check(browser, held, tmp_path, planted_dump,
+                                                  other_dump, broken_dump):
+    """In Chromium: the rows say where each dump is; when the check reads the waiting file the
+    page reloads by itself and shows its samples and layers (screenshots in tests/artifacts/:
+    pending-shelf-before.png, pending-shelf-after.png)."""
+    import threading
+    import time
+    from pathlib import Path
+
+    import waitress
+
+    client, store = held
+    waiting = post_file(client, planted_dump).get_json()
+    checked = post_file(client, other_dump).get_json()
+    refused = post_file(client, broken_dump).get_json()
+    store.check(checked["id"])
+    store.check(refused["id"])
+    app = client.application
+    server = waitress.create_server(app, host="127.0.0.1", port=0, threads=4)
+    threading.Thread(target=server.run, daemon=True).start()
+    artifacts = Path(__file__).resolve().parents[2] / "tests" / "artifacts"
+    artifacts.mkdir(exist_ok=True)
+    try:
+        page = browser.new_page(viewport={"width": 1280, "height": 900})
+        errors = []
+        page.on("pageerror", lambda error: errors.append(str(error)))
+        page.goto(f"http://127.0.0.1:{server.effective_port}/")
+
+        def row(name: str) -> str:
+            return " ".join(page.locator(f'tr[data-name="{name}"]').inner_text().split())
+
+        assert "waiting to be checked" in row("planted.h5")
+        assert f"{SAMPLES} samples" in row("other.h5") and "waiting for analysis" in row(
+            "other.h5")
+        assert "not read" in row("broken.h5") and "broken.h5, layer 'fc1'" in row("broken.h5")
+        for name in ("planted.h5", "other.h5", "broken.h5"):
+            assert not re.search(r"\b0 samples\b", row(name))
+        page.screenshot(path=str(artifacts / "pending-shelf-before.png"), full_page=True)
+
+        store.check(waiting["id"])
+        deadline = time.monotonic() + 30
+        while "waiting to be checked" in row("planted.h5"):
+            assert time.monotonic() < deadline, "the Shelf did not follow the check"
+            page.wait_for_timeout(200)
+        assert f"{SAMPLES} samples" in row("planted.h5")
+        page.screenshot(path=str(artifacts / "pending-shelf-after.png"), full_page=True)
+        assert errors == []
+    finally:
+        server.close()
