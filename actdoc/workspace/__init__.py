@@ -5,8 +5,8 @@ Rooms, one job each:
 - ``catalog.py``  the SQLite catalog (WAL), one row per dump;
 - ``store.py``    files by content hash, scratch space, the clean-up at start, the findings cache;
 - ``intake.py``   upload spools (hashed and size-checked as they stream) and the format sniff;
-- ``runner.py``   the queue and the background thread that checks and analyses each dump in a
-  confined child process (actdoc/confine).
+- ``runner.py``   the queues and the background threads that check each new dump, then analyse
+  it, each job in a confined child process (actdoc/confine).
 
 Nothing half-written reaches the catalog: an upload is streamed and hashed into ``tmp/``,
 renamed into ``dumps/`` and only then inserted as ``queued``; findings are saved into ``tmp/``
