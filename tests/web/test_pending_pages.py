@@ -122,10 +122,10 @@ def test_the_shelf_in_a_browser_follows_the_check(browser, held, tmp_path, plant
 
         store.check(waiting["id"])
         deadline = time.monotonic() + 30
-        while "waiting to be checked" in row("planted.h5"):
+        while f"{SAMPLES} samples" not in row("planted.h5"):  # the reload after the check
             assert time.monotonic() < deadline, "the Shelf did not follow the check"
             page.wait_for_timeout(200)
-        assert f"{SAMPLES} samples" in row("planted.h5")
+        assert "waiting for analysis" in row("planted.h5")
         page.screenshot(path=str(artifacts / "pending-shelf-after.png"), full_page=True)
         assert errors == []
     finally:
