@@ -103,8 +103,8 @@ def test_the_shelf_in_a_browser_follows_the_check(browser, held, tmp_path, plant
     threading.Thread(target=server.run, daemon=True).start()
     artifacts = Path(__file__).resolve().parents[2] / "tests" / "artifacts"
     artifacts.mkdir(exist_ok=True)
+    page = browser.new_page(viewport={"width": 1280, "height": 900})
     try:
-        page = browser.new_page(viewport={"width": 1280, "height": 900})
         errors = []
         page.on("pageerror", lambda error: errors.append(str(error)))
         page.goto(f"http://127.0.0.1:{server.effective_port}/")
@@ -129,4 +129,9 @@ def test_the_shelf_in_a_browser_follows_the_check(browser, held, tmp_path, plant
         page.screenshot(path=str(artifacts / "pending-shelf-after.png"), full_page=True)
         assert errors == []
     finally:
+        # The page keeps polling: close it, then let waitress's threads finish before its
+        # trigger's file descriptor closes (a thread that pulls a closed trigger writes into
+        # whatever file reuses that number, such as a later test's SQLite catalog).
+        page.close()
+        server.task_dispatcher.shutdown()
         server.close()
