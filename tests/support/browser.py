@@ -62,7 +62,9 @@ def serve_in_thread(app):
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
     yield f"http://127.0.0.1:{server.effective_port}"
-    server.close()
+    from tests.support.web import stop_server
+
+    stop_server(server)
 
 
 def get_json(url: str):

@@ -57,3 +57,12 @@ def wait_until_done(client, dump_id: str, timeout: float = 60.0) -> dict:
         time.sleep(0.05)
     raise AssertionError(f"analysis of {dump_id} still {body['status']} after {timeout} s")
 
+
+
+def stop_server(server) -> None:
+    """Stop a waitress server served from a thread of the test process: its task threads first,
+    then its sockets. Closed the other way, a thread still answering a request (a page that
+    polls) pulls the server's closed trigger, writing into whatever file reuses that descriptor
+    number, such as a later test's SQLite catalog."""
+    server.task_dispatcher.shutdown()
+    server.close()

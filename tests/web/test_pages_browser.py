@@ -19,7 +19,7 @@ import pytest
 
 from actdoc.io.writer import write_dump
 from actdoc.web import create_app
-from tests.support.web import post_file, wait_until_done
+from tests.support.web import post_file, stop_server, wait_until_done
 
 pytestmark = pytest.mark.browser
 
@@ -71,7 +71,7 @@ def site(tmp_path_factory):
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
     yield f"http://127.0.0.1:{server.effective_port}", ids
-    server.close()
+    stop_server(server)
 
 
 def open_page(browser, width: int):

@@ -12,7 +12,7 @@ import pytest
 
 from actdoc.web import create_app
 from actdoc.workspace import Workspace
-from tests.support.web import SAMPLES, post_file
+from tests.support.web import SAMPLES, post_file, stop_server
 
 
 @pytest.fixture
@@ -129,9 +129,5 @@ def test_the_shelf_in_a_browser_follows_the_check(browser, held, tmp_path, plant
         page.screenshot(path=str(artifacts / "pending-shelf-after.png"), full_page=True)
         assert errors == []
     finally:
-        # The page keeps polling: close it, then let waitress's threads finish before its
-        # trigger's file descriptor closes (a thread that pulls a closed trigger writes into
-        # whatever file reuses that number, such as a later test's SQLite catalog).
-        page.close()
-        server.task_dispatcher.shutdown()
-        server.close()
+        page.close()  # it keeps polling
+        stop_server(server)

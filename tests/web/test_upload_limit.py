@@ -13,6 +13,7 @@ import pytest
 from actdoc.web import create_app
 from actdoc.web.server import create_server
 from tests.support.confine import request
+from tests.support.web import stop_server
 
 LIMIT = 1024 * 1024
 
@@ -25,7 +26,7 @@ def live(tmp_path_factory):
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
     yield f"127.0.0.1:{server.effective_port}", app.extensions["actdoc"].workspace
-    server.close()
+    stop_server(server)
 
 
 def body_of(size: int, name: str = "big.h5") -> tuple[bytes, str]:
