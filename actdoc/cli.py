@@ -116,9 +116,9 @@ def build_parser() -> argparse.ArgumentParser:
                             "(default; --no-check-slot: the analysis slots check too)")
     serve.add_argument("--analysis-slots", type=int, default=1, metavar="N",
                        help="dumps analysed at once, each in its own child (default 1)")
-    serve.add_argument("--read-limit", action="append", default=[], metavar="NAME=VALUE",
-                       help="change one limit on what an upload may declare: member_bytes, "
-                            "total_bytes, units_per_layer, weight_bytes (a number or 'none')")
+    from actdoc.io.limits import ReadLimits
+
+    cli_limits.add_limit_options(serve, ReadLimits.for_uploads())
 
     compare = sub.add_parser(
         "compare", help="what changed between analyses of checkpoints of one model")
@@ -203,30 +203,6 @@ def _confinement(args: argparse.Namespace):
     from actdoc.confine import JobLimits
 
     return JobLimits(check_seconds=seconds, analysis_seconds=seconds, memory_mb=memory)
-
-
-def _read_limits(specs: Sequence[str]):
-    """ReadLimits.for_uploads() with the --read-limit NAME=VALUE changes applied."""
-    import dataclasses
-
-    from actdoc.io.limits import ReadLimits
-
-    limits = ReadLimits.for_uploads()
-    names = [f.name for f in dataclasses.fields(ReadLimits)]
-    for spec in specs:
-        name, _, value = spec.partition("=")
-        name = name.strip()
-        if name not in names:
-            raise ActdocError(f"--read-limit {spec}: the limits are {', '.join(names)}")
-        try:
-            number = None if value.strip().lower() == "none" else int(value)
-        except ValueError:
-            raise ActdocError(f"--read-limit {spec}: the value must be a whole number or "
-                              f"'none'") from None
-        if name == "member_bytes" and number is None:
-            raise ActdocError(f"--read-limit {spec}: member_bytes needs a number")
-        limits = dataclasses.replace(limits, **{name: number})
-    return limits
 
 
 def write_atomically(path: Path, text: str) -> None:
@@ -323,7 +299,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
     try:
         serve(host=args.host, port=args.port, workspace=args.workspace, demo=args.demo,
               token=args.token, max_upload_bytes=args.max_upload * 1024**2,
-              read_limits=_read_limits(args.read_limit), job_limits=job_limits,
+              read_limits=cli_limits.declared_limits(args), job_limits=job_limits,
               check_slot=args.check_slot, analysis_slots=args.analysis_slots)
     except OSError as err:
         raise ActdocError(f"cannot serve the dashboard on {args.host}:{args.port}: "

@@ -37,17 +37,42 @@ def unit_count(text: str) -> int | None:
     return int(text)
 
 
-def add_limit_options(parser: argparse.ArgumentParser) -> None:
-    """What a dump may declare before it is refused (docs/dump-layout.md, "Size limits")."""
+def size_words(nbytes: int | None) -> str:
+    """A limit as the options write it: ``8G``, ``256M``, ``65536`` or ``none``."""
+    if nbytes is None:
+        return "none"
+    for suffix, scale in (("T", 1024**4), ("G", 1024**3), ("M", 1024**2), ("K", 1024)):
+        if nbytes >= scale and nbytes % scale == 0:
+            return f"{nbytes // scale}{suffix}"
+    return str(nbytes)
+
+
+def add_limit_options(parser: argparse.ArgumentParser, defaults=None) -> None:
+    """What a dump may declare before it is refused (docs/dump-layout.md, "Size limits").
+
+    ``defaults`` (a ReadLimits) gives each option's default: the command line's own
+    (``ReadLimits()``) unless given; ``serve`` passes ``ReadLimits.for_uploads()``.
+    """
+    from actdoc.io.limits import ReadLimits
+
+    defaults = defaults or ReadLimits()
     group = parser.add_argument_group("size limits (a number with K, M, G or T, or 'none')")
-    group.add_argument("--max-total-bytes", type=byte_size, metavar="SIZE", default=None,
-                       help="all arrays of the dump together, as declared (default: none)")
-    group.add_argument("--max-member-bytes", type=byte_size, metavar="SIZE", default="8G",
-                       help="one NPZ member, uncompressed (default: 8G)")
-    group.add_argument("--max-weight-bytes", type=byte_size, metavar="SIZE", default=None,
-                       help="one layer's weight array (default: none)")
-    group.add_argument("--max-units", type=unit_count, metavar="N", default=None,
-                       help="units (or channels) of one layer (default: none)")
+    group.add_argument("--max-total-bytes", type=byte_size, metavar="SIZE",
+                       default=defaults.total_bytes,
+                       help="all arrays of the dump together, as declared "
+                            f"(default: {size_words(defaults.total_bytes)})")
+    group.add_argument("--max-member-bytes", type=byte_size, metavar="SIZE",
+                       default=defaults.member_bytes,
+                       help="one NPZ member, uncompressed "
+                            f"(default: {size_words(defaults.member_bytes)})")
+    group.add_argument("--max-weight-bytes", type=byte_size, metavar="SIZE",
+                       default=defaults.weight_bytes,
+                       help="one layer's weight array "
+                            f"(default: {size_words(defaults.weight_bytes)})")
+    group.add_argument("--max-units", type=unit_count, metavar="N",
+                       default=defaults.units_per_layer,
+                       help="units (or channels) of one layer "
+                            f"(default: {defaults.units_per_layer or 'none'})")
 
 
 def declared_limits(args: argparse.Namespace):

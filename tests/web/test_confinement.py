@@ -215,21 +215,39 @@ def test_a_confined_analysis_equals_the_plain_one(tmp_path, capsys, fmt):
     assert capsys.readouterr().out == plain
 
 
-def test_serve_options_reach_the_app(monkeypatch):
+def test_serve_options_reach_the_app(monkeypatch, capsys):
+    """``serve`` takes the size-limit options of ``analyze`` and ``check`` under the same
+    names, with the upload limits as their defaults."""
     import actdoc.web
 
     seen = {}
     monkeypatch.setattr(actdoc.web, "serve", lambda **kwargs: seen.update(kwargs))
+    assert main(["serve"]) == 0
+    assert seen["read_limits"] == ReadLimits.for_uploads()
     assert main(["serve", "--max-upload", "5", "--check-time", "7", "--analysis-time", "90",
-                 "--memory-limit", "300", "--read-limit", "units_per_layer=none",
-                 "--read-limit", "weight_bytes=1024", "--no-check-slot",
+                 "--memory-limit", "300", "--max-units", "none", "--max-weight-bytes", "1K",
+                 "--max-total-bytes", "3G", "--max-member-bytes", "500M", "--no-check-slot",
                  "--analysis-slots", "2"]) == 0
     assert seen["max_upload_bytes"] == 5 * 1024**2
     assert seen["check_slot"] is False and seen["analysis_slots"] == 2
     assert seen["job_limits"] == JobLimits(check_seconds=7, analysis_seconds=90, memory_mb=300)
-    uploads = ReadLimits.for_uploads()
-    assert seen["read_limits"] == ReadLimits(member_bytes=uploads.member_bytes,
-                                             total_bytes=uploads.total_bytes,
+    assert seen["read_limits"] == ReadLimits(member_bytes=500 * 1024**2,
+                                             total_bytes=3 * 1024**3,
                                              units_per_layer=None, weight_bytes=1024)
-    assert main(["serve", "--read-limit", "colour=3"]) == 2
+    # The same names as analyze/check; the earlier --read-limit NAME=VALUE is gone.
+    for command in ("analyze", "check", "serve"):
+        assert "--max-weight-bytes SIZE" in capture_help(command, capsys)
+    with pytest.raises(SystemExit) as refused:
+        main(["serve", "--read-limit", "weight_bytes=1024"])
+    assert refused.value.code == 2
+    with pytest.raises(SystemExit) as refused:
+        main(["serve", "--max-units", "many"])
+    assert refused.value.code == 2
+    assert "'many' is not a positive whole number" in capsys.readouterr().err
     assert main(["serve", "--analysis-slots", "0"]) == 2
+
+
+def capture_help(command: str, capsys) -> str:
+    with pytest.raises(SystemExit):
+        main([command, "--help"])
+    return capsys.readouterr().out
