@@ -251,3 +251,17 @@ def capture_help(command: str, capsys) -> str:
     with pytest.raises(SystemExit):
         main([command, "--help"])
     return capsys.readouterr().out
+
+
+def test_the_confined_command_line_reads_under_its_size_options(tmp_path, planted_dump,
+                                                                capsys):
+    """``--time-limit`` moves the reading into the child; the size options go with it, so a
+    refusal reads the same with and without confinement (the planted layers have 24, 16 and
+    3 units: --max-units 20 refuses hidden1)."""
+    common = ["check", str(planted_dump), "--max-units", "20"]
+    assert main(common) == 2
+    plain = capsys.readouterr().err
+    assert "layer 'hidden1'" in plain and "limit of 20 units per layer" in plain
+    assert main(common + ["--time-limit", "120"]) == 2
+    assert capsys.readouterr().err == plain
+    assert main(["check", str(planted_dump), "--max-units", "24", "--time-limit", "120"]) != 2
