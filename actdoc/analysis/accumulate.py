@@ -3,7 +3,14 @@
 A tile is a run of observation rows over a run of units (``cols``): a whole block of every unit
 when blocks are read into buffers, or one stored chunk viewed in place (``actdoc.io.direct``).
 Each tile is worked through in row slices with reused scratch buffers: comparisons become
-boolean masks counted as ``uint16``, and power sums are taken about the first slice's mean.
+boolean masks counted as ``uint16``, power sums are taken about the first slice's mean, and
+the histogram sample of each slice is binned while the slice is in the cache.
+
+Every budget is in bytes or values, never in rows, so a wide layer costs what a narrow one of
+the same bytes does: blocks hold at most ``block_bytes`` of each array (``block_rows``), slices
+``SLICE_BYTES`` of float64, tiles at most ``TILE_UNITS`` units (wider ones are cut into runs of
+units, so a slice keeps enough rows to pay for its per-unit work), and the histogram sample at
+most ``histogram_values`` values.
 """
 
 from __future__ import annotations
@@ -13,6 +20,7 @@ import numpy as np
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.histograms import grids_for, sample_stride, sampled_rows
 from actdoc.analysis.moments import PowerSums
+from actdoc.model import ACTIVATION_ARRAYS, LayerInfo
 from actdoc.model import ActivationKind as Kind
 
 #: Bytes of float64 scratch per row slice (2 MiB: a whole (1024, 256) chunk in one slice, in
@@ -22,6 +30,19 @@ from actdoc.model import ActivationKind as Kind
 SLICE_BYTES = 1 << 21
 #: Per-slice counts are summed as uint16, so a slice holds at most 65535 rows.
 MAX_SLICE_ROWS = 65535
+#: Units per tile at most: a slice then holds at least SLICE_BYTES / 8 / TILE_UNITS = 256 rows,
+#: so the per-unit work of a slice (extremes, sums, counters: about fifteen operations on
+#: vectors of its width) stays a small share of its per-value work.
+TILE_UNITS = 1024
+
+
+def block_rows(info: LayerInfo, settings: Settings) -> int:
+    """Observations per block: at most ``block_observations``, and at most ``block_bytes`` of
+    each stored activation array as it is measured (float16 is widened to float32)."""
+    itemsize = max((max(4, np.dtype(info.arrays[name].dtype).itemsize)
+                    for name in ACTIVATION_ARRAYS if info.has(name)), default=4)
+    by_bytes = settings.block_bytes // max(1, info.units * itemsize)
+    return int(max(1, min(settings.block_observations, by_bytes)))
 
 
 class Accumulator:
@@ -34,11 +55,13 @@ class Accumulator:
         values = SLICE_BYTES // 8
         self._x, self._scratch = np.empty(values), np.empty(values)
         self._mask = np.empty(values, bool)
+        self._outputs: dict = {}
         self.zone = self.neuron.saturation_zone(settings.logistic_saturation_margin,
                                                 settings.tanh_saturation_level)
         self.linear_zone = self.neuron.linear_zone(settings.linear_gain_share)
         self.grids = grids_for(self.kind)
-        self.stride = sample_stride(observations, settings.histogram_rows)
+        self.stride = sample_stride(observations, settings.histogram_rows, stats.units,
+                                    settings.histogram_values)
 
     def slice_rows(self, width: int) -> int:
         """Rows per slice for tiles ``width`` units wide."""
@@ -66,35 +89,51 @@ class Accumulator:
     def _add_tile(self, z: np.ndarray | None, y: np.ndarray | None, first_row: int,
                   cols: slice, sums: PowerSums) -> None:
         rows, width = (z if y is None else y).shape
+        if width > TILE_UNITS:  # cut into runs of units
+            base = cols.start or 0
+            for start in range(0, width, TILE_UNITS):
+                stop = min(start + TILE_UNITS, width)
+                self._add_tile(None if z is None else z[:, start:stop],
+                               None if y is None else y[:, start:stop], first_row,
+                               slice(base + start, base + stop), sums)
+            return
         step = self.slice_rows(width)
         for start in range(0, rows, step):
             stop = min(start + step, rows)
             z_part = None if z is None else z[start:stop]
             y_part = self._output(z_part) if y is None else y[start:stop]
-            self._add_slice(z_part, y_part, sums, cols)
-        self._add_histograms(z, y, first_row)
+            clean = self._add_slice(z_part, y_part, sums, cols)
+            self._add_histograms(z_part, y_part, first_row + start, clean)
 
     def _output(self, z: np.ndarray) -> np.ndarray:
+        """f(z) of a slice, into a reused buffer of z's dtype where the kind allows it."""
+        out = self._outputs.get(z.dtype)
+        if out is None or out.size < z.size:
+            out = self._outputs[z.dtype] = np.empty(max(z.size, self._x.size), z.dtype)
+        out = out[:z.size].reshape(z.shape)
         with np.errstate(over="ignore", invalid="ignore"):
-            return self.neuron.output(z)
+            return self.neuron.output(z, out=out)
 
-    def _add_histograms(self, z, y, first_row: int) -> None:
+    def _add_histograms(self, z, y, first_row: int, clean: bool) -> None:
+        """Bin the slice's sampled rows. A slice with a non-finite value keeps out the whole
+        observation (preact and output) wherever either value is not finite."""
+        ys = sampled_rows(y, first_row, self.stride)
+        if ys.shape[0] == 0:
+            return
+        zs = None if z is None else sampled_rows(z, first_row, self.stride)
         hist = self.stats.histograms
-        if z is not None:
-            zs = sampled_rows(z, first_row, self.stride)
-            if zs.shape[0] == 0:
-                return
-            ys = self._output(zs) if y is None else sampled_rows(y, first_row, self.stride)
-            finite = np.isfinite(zs) & np.isfinite(ys)
-            hist["preact"] += self.grids["preact"].count(zs[finite])
-        else:
-            ys = sampled_rows(y, first_row, self.stride)
-            if ys.shape[0] == 0:
-                return
+        if not clean:
             finite = np.isfinite(ys)
-            if "preact" in hist:
-                hist["preact"] += self.grids["preact"].count(self.neuron.inverse(ys[finite]))
-        hist["output"] += self.grids["output"].count(ys[finite])
+            if zs is not None:
+                finite &= np.isfinite(zs)
+                zs = zs[finite]
+            ys = ys[finite]
+        if zs is not None:
+            hist["preact"] += self.grids["preact"].count(zs)
+        elif "preact" in hist:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                hist["preact"] += self.grids["preact"].count(self.neuron.inverse(ys))
+        hist["output"] += self.grids["output"].count(ys)
 
     # ------------------------------------------------------------------------- slices
     def _count(self, out: np.ndarray | None, compare, values, edge, valid) -> None:
@@ -106,7 +145,8 @@ class Accumulator:
         out += np.add.reduce(mask.view(np.uint8), axis=0, dtype=np.uint16)
 
     def _add_slice(self, z: np.ndarray | None, y: np.ndarray, sums: PowerSums,
-                   cols: slice) -> None:
+                   cols: slice) -> bool:
+        """Add one slice; whether every value in it was finite."""
         stats = self.stats
         low = np.minimum.reduce(y, axis=0)
         high = np.maximum.reduce(y, axis=0)
@@ -138,6 +178,7 @@ class Accumulator:
             np.abs(x, out=scratch)
             stats.abs_sum[cols] += np.add.reduce(scratch, axis=0)
         sums.add(x, scratch, valid, cols)
+        return bool(clean)
 
     def _add_counts(self, z, y, valid, cols: slice) -> None:
         stats, kind = self.stats, self.kind

@@ -17,6 +17,7 @@ from typing import Callable
 import numpy as np
 
 from actdoc.analysis import verdicts
+from actdoc.analysis.accumulate import block_rows
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.stats import LayerStats, accumulate_layer
 from actdoc.digest import BackgroundDigest, file_sha256
@@ -57,7 +58,7 @@ def _random_access(layer: Layer) -> bool:
 def _tasks(dump: Dump, settings: Settings) -> list[tuple[int, int, int, int]]:
     """(layer index, first sample, stop sample, work) pieces, biggest layers' pieces first.
 
-    Range boundaries fall on whole blocks of ``block_observations`` so every block is full.
+    Range boundaries fall on whole blocks (``block_rows``) so every block is full.
     """
     tasks = []
     for index, layer in enumerate(dump.layers):
@@ -66,7 +67,7 @@ def _tasks(dump: Dump, settings: Settings) -> list[tuple[int, int, int, int]]:
         if not stored or info.samples == 0:
             continue
         row_bytes = sum(np.dtype(a.dtype).itemsize * int(np.prod(a.shape[1:])) for a in stored)
-        block = max(1, settings.block_observations // max(1, info.positions))
+        block = max(1, block_rows(info, settings) // max(1, info.positions))
         pieces = 1
         if _random_access(layer):
             pieces = max(1, min(-(-info.samples * row_bytes // TASK_BYTES),
