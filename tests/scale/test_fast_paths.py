@@ -22,7 +22,7 @@ def reference_counts(grid: Grid, values: np.ndarray) -> np.ndarray:
     Each value's float64 position (asinh-transformed where the grid is) is binned by
     np.histogram on integer edges 0..bins, after clipping into the outer bins.
     """
-    with np.errstate(over="ignore"):  # the largest floats divided by the scale overflow
+    with np.errstate(over="ignore", invalid="ignore"):  # huge floats / scale overflow; NaN
         position = grid.positions(values)
     position = np.clip(position[~np.isnan(position)], 0, grid.bins - 0.5)
     return np.histogram(position, bins=np.arange(grid.bins + 1))[0]
