@@ -16,7 +16,7 @@ from typing import Callable
 
 import numpy as np
 
-from actdoc.analysis import verdicts
+from actdoc.analysis import kernel, verdicts
 from actdoc.analysis.accumulate import block_rows
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.stats import LayerStats, accumulate_layer
@@ -47,6 +47,13 @@ def available_cores() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:  # no affinity masks on this OS
         return max(1, os.cpu_count() or 1)
+
+
+def activation_bytes(dump: Dump) -> int:
+    """Stored bytes of every layer's preact and output arrays."""
+    return sum(np.dtype(shape.dtype).itemsize * int(np.prod(shape.shape))
+               for layer in dump.layers for name, shape in layer.info.arrays.items()
+               if name in ("preact", "output"))
 
 
 def _random_access(layer: Layer) -> bool:
@@ -137,6 +144,8 @@ def analyze(dump: Dump, settings: Settings | None = None,
     settings = settings or Settings()
     if progress is not None:
         progress(0.0)
+    if activation_bytes(dump) >= kernel.LOAD_ABOVE_BYTES:
+        kernel.start_loading()  # loads beside the pass; numpy measures until it is ready
     hashing = None
     if source is None:
         source = source_info(dump, digest=False)
