@@ -144,7 +144,7 @@ def analyze(dump: Dump, settings: Settings | None = None,
     settings = settings or Settings()
     if progress is not None:
         progress(0.0)
-    if activation_bytes(dump) >= kernel.LOAD_ABOVE_BYTES:
+    if kernel.worth_loading(activation_bytes(dump)):
         kernel.start_loading()  # loads beside the pass; numpy measures until it is ready
     hashing = None
     if source is None:

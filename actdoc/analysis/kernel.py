@@ -1,18 +1,21 @@
 """One fused pass over a clean slice, compiled with numba where it is installed.
 
 numpy makes a pass over memory per operation: about thirteen per value for the statistics of a
-slice (extremes, counts, power sums), 8-10 ns per value on the project's machine. The kernel
-here does them all in one pass over the slice (about 2-3 ns per value) and releases the GIL, so
-measuring threads run side by side. It gives bit for bit the numpy path's results: the same
-float32 or float64 arithmetic in the same order (numpy reduces a C-ordered block along its rows
-one row after the other, and so does the kernel), so which path measured a slice never shows in
-the findings (tested). Slices holding a non-finite value, and kinds whose gain is summed value by
-value, stay with numpy.
+slice (extremes, counts, power sums), about 2 ns per value in a full pass on the project's
+machine (slices of 2 MiB stay in the cache). The kernel does them all in one vectorised pass
+(about 1 ns per value) and releases the GIL, so measuring threads run side by side. It gives
+bit for bit the numpy path's results: the same float32 or float64 arithmetic in the same order
+(numpy reduces a C-ordered block along its rows one row after the other, and so does the
+kernel), so which path measured a slice never shows in the findings (tested). Slices holding a
+non-finite value or not C-ordered, and kinds whose gain is summed value by value, stay with
+numpy.
 
-numba is imported and the kernel loaded in a background thread (``start_loading``) the first
-time a large analysis starts: about 0.5-0.8 s of CPU once per process, from numba's cache after
-the first run, during which the numpy path measures. ``ACTDOC_KERNEL=numpy`` keeps numpy only;
-where numba is missing or fails to load, numpy simply stays.
+numba is an optional dependency (``pip install 'actdoc[fast]'``). It is imported and the kernel
+loaded in a background thread (``start_loading``) when an analysis of more than
+``LOAD_ABOVE_BYTES`` starts: about 0.6 s of CPU and 125 MB of memory once per process (from
+numba's cache; the very first run compiles for a few seconds), during which the numpy path
+measures. ``ACTDOC_KERNEL=numba`` loads it for any size, ``ACTDOC_KERNEL=numpy`` never; where
+numba is missing or fails to load, numpy simply stays.
 """
 
 from __future__ import annotations
@@ -24,9 +27,12 @@ import numpy as np
 
 #: Comparison codes of the counting tests (``Count.op`` in accumulate.py).
 GREATER, LESS, NEAR = 0, 1, 2
-#: Activation bytes from which an analysis loads the kernel: below, numpy finishes before the
-#: 0.5-0.8 CPU-seconds of loading numba would pay for themselves.
-LOAD_ABOVE_BYTES = 256 << 20
+#: Activation bytes from which an analysis loads the kernel by itself. Measured on this
+#: project's 2-core machine: the numpy path takes about 2 ns per value in a full pass and the
+#: kernel about 1, so loading it (0.6 CPU-s, 125 MB) only pays for itself past about 2.5 GB of
+#: float32, and it would take the peak memory of a 2-4 GB analysis from about 135 MB to
+#: about 260 MB. ``ACTDOC_KERNEL=numba`` loads it whatever the size.
+LOAD_ABOVE_BYTES = 8 * 10**9
 
 _lock = threading.Lock()
 _loader: threading.Thread | None = None
@@ -34,15 +40,40 @@ _fused = None
 _failed: str | None = None
 
 
+def _choice() -> str:
+    return os.environ.get("ACTDOC_KERNEL", "").strip().lower()
+
+
 def wanted() -> bool:
     """Whether the compiled path may be used (``ACTDOC_KERNEL=numpy`` turns it off)."""
-    return os.environ.get("ACTDOC_KERNEL", "").strip().lower() != "numpy"
+    return _choice() != "numpy"
+
+
+def worth_loading(activation_bytes: int) -> bool:
+    """Whether an analysis of this many activation bytes should load the kernel."""
+    return _choice() == "numba" or (wanted() and activation_bytes >= LOAD_ABOVE_BYTES)
+
+
+#: Address-space limit (RLIMIT_AS) below which the kernel is not loaded: LLVM's compiler
+#: takes about 125 MB of resident memory and more address space (measured on this project's
+#: machines), better left to the blocks in a process held that tight.
+MIN_ADDRESS_SPACE = 2 << 30
+
+
+def _room() -> bool:
+    try:
+        import resource
+        soft, _ = resource.getrlimit(resource.RLIMIT_AS)
+    except (ImportError, ValueError, OSError):  # no such limit on this OS
+        return True
+    return soft == resource.RLIM_INFINITY or soft >= MIN_ADDRESS_SPACE
 
 
 def start_loading() -> None:
-    """Import numba and load the kernel in a daemon thread, once per process."""
+    """Import numba and load the kernel in a daemon thread, once per process (not under a
+    tight address-space limit)."""
     global _loader
-    if not wanted():
+    if not wanted() or not _room():
         return
     with _lock:
         if _loader is None:
