@@ -179,7 +179,8 @@ def verdict(result: dict, first: dict | None) -> str:
 def table(results: list[dict]) -> str:
     """The Markdown table of every cell and size (what the README shows)."""
     lines = ["| cell | GB | raw s | analyze s | naive s | analyze / raw | naive / analyze | "
-             "peak MB | targets |", "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
+             "CPU s raw / analyze | peak MB | targets |",
+             "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
     firsts: dict[str, dict] = {}
     for result in results:
         first = firsts.setdefault(result["cell"], result)
@@ -188,7 +189,7 @@ def table(results: list[dict]) -> str:
             f"| {result['cell']} | {result['size_gb']:.2f} | {w['raw']['wall_best_s']:.2f} | "
             f"{w['analyze']['wall_best_s']:.2f} | {w['naive']['wall_best_s']:.2f} | "
             f"{result['analyze_over_raw']:.2f}x | {result['naive_over_analyze']:.2f}x | "
-            f"{result['peak_mb']:.0f} | {verdict(result, None if first is result else first)} |")
+            f"{w['raw']['cpu_s']:.2f} / {w['analyze']['cpu_s']:.2f} | {result['peak_mb']:.0f} | {verdict(result, None if first is result else first)} |")
     return "\n".join(lines)
 
 
