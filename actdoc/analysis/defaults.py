@@ -251,8 +251,12 @@ class Settings:
     """Share of a layer's units at which a unit-level finding is a warning rather than info."""
     histogram_rows: int = _default("histogram_rows")
     """Observation rows per layer, at most about, that feed the histograms."""
+    histogram_values: int = _default("histogram_values")
+    """Values (rows times units) per layer, at most about, that feed the histograms."""
     block_observations: int = _default("block_observations")
-    """Observations read per block from the dump."""
+    """Observations read per block from the dump, at most."""
+    block_bytes: int = _default("block_bytes")
+    """Bytes of one stored activation array per block, at most."""
     read_ahead_blocks: int = _default("read_ahead_blocks")
     """Blocks a reader thread fetches ahead of the statistics (0: no reader thread)."""
 
