@@ -2,8 +2,7 @@
 
     python -m benchmarks.reference [--out tests/scale/data/findings_reference.json.gz]
 
-Run once with the engine as it stood before a speed change (the committed file was written by
-the engine of the project's main branch before the byte budgets of docs/scale.md); the test
+Run once with the engine as it stood before a speed change; the test
 ``tests/scale/test_same_findings.py`` then checks that the engine of today gives the same
 findings, unit states, per-unit figures and histograms on every cell.
 
@@ -12,6 +11,13 @@ histogram sample (``SMALL``) so that blocks, sample ranges and the every-k-th-ro
 exercised. The record of one analysis is compact (``summarize``): every finding whole, each
 layer's status, fractions, scales and histograms, and the per-unit table of a fixed subset of
 units (all of them up to 64 units).
+
+The committed file was written by the main branch's engine before the byte budgets of
+docs/scale.md (main at "docs: the long runs' results", checks included), with this folder's
+``cells.py``, ``reference.py`` and ``__init__.py`` copied into an empty folder's
+``benchmarks/`` and run there as ``PYTHONPATH=<main checkout> python -m benchmarks.reference``
+(with ``demo_models`` linked beside it), so that only the engine came from main. Regenerate it
+the same way whenever a change is meant to alter findings.
 """
 
 from __future__ import annotations
