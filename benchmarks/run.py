@@ -1,22 +1,28 @@
-"""Throughput and memory of ``actdoc analyze`` against a raw read and a naive script.
+"""Throughput and memory of ``actdoc analyze`` over the benchmark matrix, against a raw read
+and a naive script of the same file.
 
-    python benchmarks/run.py --size-gb 2 --also 4 [--repeats 3] [--cache DIR]
+    python benchmarks/run.py --size-gb 2 [--also 4] [--cells all|smoke|NAME,...]
+                             [--repeats 1] [--json] [--cache DIR] [--keep]
 
-For each dump size it writes (or reuses from the cache folder) a dump with actdoc's writer, warms
-the page cache, then runs, as whole processes and alternating within each repetition:
+The matrix (``benchmarks/cells.py``) stores the same activation bytes the ways users store them:
+actdoc's writer, plain h5py contiguous, h5py's own chunks, gzip chunks and ``np.savez``; widths
+256, 1024 and 8192; outputs only, total inputs only, or both; float32 and float64. For each cell
+and size it writes the dump (or reuses it from the cache folder), warms the page cache with one
+raw read, then runs, as whole processes and alternating within each repetition:
 
-* ``raw``: one process reading every activation array in blocks with ``read_direct`` into a
-  reused buffer (the floor for a single-process pass over the same file);
+* ``raw``: one process reading every activation array in 16 MiB blocks into one reused buffer,
+  computing nothing (the floor for a single-process pass over the same file);
 * ``analyze``: ``actdoc analyze DUMP``, the terminal report (which never shows the file's
   SHA-256, so the file is not hashed), output checked;
-* ``analyze-json``: ``actdoc analyze DUMP --format json``, the findings document, which carries
-  the SHA-256 of the whole file (hashed beside the pass), output checked;
-* ``naive``: a script loading each array whole and making one numpy pass per statistic.
+* ``naive``: a script loading each array whole and making one numpy pass per statistic;
+* with ``--json``, also ``analyze-json``: the findings document, which carries the SHA-256
+  of the whole file, hashed beside the pass.
 
-It prints wall time (best and median), GB/s, CPU seconds (user + system, median), peak resident
-memory (largest process, and the whole process tree) and the ratios analyze / raw and
-naive / analyze (the targets apply to ``analyze``); then the time to read one unit's column
-through ``actdoc.io``. Results also go to ``benchmarks/out/`` as JSON.
+It prints one row per cell and size: best wall times, the ratios analyze / raw and
+naive / analyze, and the peak memory of ``analyze`` (the largest sum of resident memory over
+its process tree, and the kernel's high-water mark of its largest process), then which targets
+each cell meets. Dumps are deleted after their cell unless ``--keep``. Results also go to
+``benchmarks/out/`` as JSON.
 """
 
 from __future__ import annotations
@@ -33,14 +39,14 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE))
+sys.path.insert(0, str(HERE.parent))
 
-from dumps import BenchDump, ensure_bench_dump  # noqa: E402
-from measure import ProcessRun, run_measured  # noqa: E402
+from benchmarks.cells import CELLS, SMOKE, Cell, cell_named, write_cell  # noqa: E402
+from benchmarks.measure import ProcessRun, run_measured  # noqa: E402
 
-WORKLOADS = ("raw", "analyze", "analyze-json", "naive")
-TARGETS = {"analyze_over_raw_max": 2.0, "naive_over_analyze_min": 5.0, "peak_rss_mb_max": 400.0,
-           "unit_read_ms_max": 50.0}
+TARGETS = {"analyze_over_raw_max": 2.5, "analyze_over_raw_goal": 1.5,
+           "gzip_over_raw_max": 1.5, "naive_over_analyze_min": 4.0, "peak_mb_max": 250.0,
+           "flat_max": 1.25, "unit_read_ms_max": 50.0}
 
 
 def workload_command(name: str, dump: Path) -> list[str]:
@@ -51,89 +57,95 @@ def workload_command(name: str, dump: Path) -> list[str]:
     return [sys.executable, str(HERE / "workloads.py"), name, str(dump)]
 
 
-
-def check_run(run: ProcessRun, dump: BenchDump) -> None:
+def check_run(run: ProcessRun, cell: Cell, samples: int) -> None:
     """Fail loudly when a workload did not do the whole job."""
     if run.returncode != 0:
-        raise SystemExit(f"{run.label} failed with status {run.returncode}:\n{run.stderr[-2000:]}")
+        raise SystemExit(f"{cell.name} {run.label} failed with status {run.returncode}:\n"
+                         f"{run.stderr[-2000:]}")
     if run.label == "analyze-json":
         document = json.loads(run.stdout)
-        if (len(document["layers"]) != dump.layers or document["source"]["samples"] != dump.samples
+        if (len(document["layers"]) != 4 or document["source"]["samples"] != samples
                 or len(document["source"]["sha256"]) != 64):
-            raise SystemExit("analyze: the findings document does not cover the whole dump")
-    elif run.label.startswith("analyze"):
-        missing = [f"layer{i}" for i in range(1, dump.layers + 1) if f"layer{i}" not in run.stdout]
+            raise SystemExit(f"{cell.name}: the findings document does not cover the dump")
+    elif run.label == "analyze":
+        missing = [f"layer{i}" for i in range(1, 5) if f"layer{i}" not in run.stdout]
         if missing:
-            raise SystemExit(f"{run.label}: the report does not cover {', '.join(missing)}")
-    else:
-        if json.loads(run.stdout)["bytes"] != dump.activation_bytes:
-            raise SystemExit(f"{run.label}: read a different number of bytes than the dump holds")
+            raise SystemExit(f"{cell.name}: the report does not cover {', '.join(missing)}")
+    elif json.loads(run.stdout)["bytes"] != cell.activation_bytes(samples):
+        raise SystemExit(f"{cell.name} {run.label}: read a different number of bytes than "
+                         f"the dump holds")
 
 
-def unit_read_times(dump: BenchDump, count: int = 7, seed: int = 0) -> list[float]:
-    """Seconds to read one unit's column of preact, each on a freshly opened dump."""
+def unit_read_times(cell: Cell, path: Path, samples: int, count: int = 7) -> list[float]:
+    """Seconds to read one unit's column through actdoc.io, each on a freshly opened dump."""
     probe = (
         "import sys, time\n"
         "from actdoc.io import open_dump\n"
-        "path, layer, units = sys.argv[1], sys.argv[2], [int(u) for u in sys.argv[3:]]\n"
+        "path, array, units = sys.argv[1], sys.argv[2], [int(u) for u in sys.argv[3:]]\n"
         "for unit in units:\n"
         "    with open_dump(path) as dump:\n"
         "        started = time.perf_counter()\n"
-        "        values = dump.layer(layer).unit_values('preact', unit)\n"
+        "        values = dump.layer('layer2').unit_values(array, unit)\n"
         "        print(time.perf_counter() - started, values.size)\n")
-    rng = random.Random(seed)
-    units = [str(rng.randrange(dump.units)) for _ in range(count)]
-    done = subprocess.run([sys.executable, "-c", probe, str(dump.path), "layer2", *units],
+    rng = random.Random(0)
+    units = [str(rng.randrange(cell.units)) for _ in range(count)]
+    done = subprocess.run([sys.executable, "-c", probe, str(path), cell.stored[0], *units],
                           capture_output=True, text=True, check=True)
     times = []
     for line in done.stdout.split("\n"):
         if line.strip():
             seconds, size = line.split()
-            if int(size) != dump.samples:
+            if int(size) != samples:
                 raise SystemExit("unit read returned the wrong number of values")
             times.append(float(seconds))
     return times
 
 
-def measure_size(size_gb: float, repeats: int, cache: Path,
-                 workloads: tuple[str, ...] = WORKLOADS) -> dict:
+def measure_cell(cell: Cell, size_gb: float, repeats: int, cache: Path, keep: bool,
+                 with_json: bool) -> dict:
+    samples = cell.samples_for(size_gb)
+    cache.mkdir(parents=True, exist_ok=True)
+    path = cache / f"{cell.name}-{samples}{cell.suffix}"
     started = time.perf_counter()
-    dump = ensure_bench_dump(cache, size_gb)
-    prepared_s = time.perf_counter() - started
-    check_run(run_measured("raw", workload_command("raw", dump.path)), dump)  # warm page cache
-    runs: dict[str, list[ProcessRun]] = {name: [] for name in workloads}
-    for repeat in range(repeats):
-        order = workloads if repeat % 2 == 0 else tuple(reversed(workloads))
-        for name in order:
-            run = run_measured(name, workload_command(name, dump.path))
-            check_run(run, dump)
-            runs[name].append(run)
-    gb = dump.activation_bytes / 1e9
-    rows = {}
-    for name, done in runs.items():
-        walls = [r.wall_s for r in done]
-        rows[name] = {
-            "wall_best_s": min(walls), "wall_median_s": statistics.median(walls),
-            "gb_per_s": gb / min(walls),
-            "cpu_s": statistics.median(r.cpu_s for r in done),
-            "peak_rss_mb": max(r.peak_rss_mb for r in done),
-            "tree_rss_mb": max(r.tree_rss_mb for r in done),
-        }
-    unit_times = unit_read_times(dump)
+    if not path.exists():
+        partial = path.with_name(path.name + ".part")
+        write_cell(cell, partial, samples)
+        partial.rename(path)
+    prepared = time.perf_counter() - started
+    names = ("raw", "analyze", "naive") + (("analyze-json",) if with_json else ())
+    try:
+        check_run(run_measured("raw", workload_command("raw", path)), cell, samples)  # warm
+        runs: dict[str, list[ProcessRun]] = {name: [] for name in names}
+        for repeat in range(repeats):
+            for name in names if repeat % 2 == 0 else tuple(reversed(names)):
+                run = run_measured(name, workload_command(name, path))
+                check_run(run, cell, samples)
+                runs[name].append(run)
+        unit = unit_read_times(cell, path, samples) if cell.layout == "writer" else None
+    finally:
+        if not keep:
+            path.unlink(missing_ok=True)
+    rows = {name: {"wall_best_s": min(r.wall_s for r in done),
+                   "wall_median_s": statistics.median(r.wall_s for r in done),
+                   "cpu_s": statistics.median(r.cpu_s for r in done),
+                   "peak_rss_mb": max(r.peak_rss_mb for r in done),
+                   "tree_rss_mb": max(r.tree_rss_mb for r in done)} for name, done in runs.items()}
+    best = {name: row["wall_best_s"] for name, row in rows.items()}
     return {
-        "size_gb": gb, "file": str(dump.path), "samples": dump.samples, "layers": dump.layers,
-        "units": dump.units, "prepare_s": prepared_s, "repeats": repeats, "workloads": rows,
-        "analyze_over_raw": rows["analyze"]["wall_best_s"] / rows["raw"]["wall_best_s"],
-        "naive_over_analyze": rows["naive"]["wall_best_s"] / rows["analyze"]["wall_best_s"],
-        "json_over_raw": rows["analyze-json"]["wall_best_s"] / rows["raw"]["wall_best_s"],
-        "naive_over_json": rows["naive"]["wall_best_s"] / rows["analyze-json"]["wall_best_s"],
-        "unit_read_ms": {"median": 1000 * statistics.median(unit_times),
-                         "max": 1000 * max(unit_times)},
+        "cell": cell.name, "layout": cell.layout, "units": cell.units, "arrays": cell.arrays,
+        "dtype": cell.dtype, "size_gb": cell.activation_bytes(samples) / 1e9, "samples": samples,
+        "prepare_s": prepared, "repeats": repeats, "workloads": rows,
+        "analyze_over_raw": best["analyze"] / best["raw"],
+        "naive_over_analyze": best["naive"] / best["analyze"],
+        "json_over_raw": best["analyze-json"] / best["raw"] if with_json else None,
+        "peak_mb": max(rows["analyze"]["tree_rss_mb"], rows["analyze"]["peak_rss_mb"]),
+        "unit_read_ms": None if unit is None else 1000 * statistics.median(unit),
     }
 
 
 def machine() -> dict:
     model = ""
+    mem_kb = 0
     try:
         for line in Path("/proc/cpuinfo").read_text().splitlines():
             if line.startswith("model name"):
@@ -142,69 +154,88 @@ def machine() -> dict:
         mem_kb = next(int(line.split()[1]) for line in Path("/proc/meminfo").read_text()
                       .splitlines() if line.startswith("MemTotal:"))
     except (OSError, StopIteration):
-        mem_kb = 0
+        pass
     return {"cpus": os.cpu_count(), "cpu_model": model, "memory_gib": round(mem_kb / 2**20, 1),
             "python": platform.python_version()}
 
 
-def verdicts(result: dict, flat_ratio: float | None) -> list[str]:
-    lines = []
-    over_raw, naive = result["analyze_over_raw"], result["naive_over_analyze"]
-    rss = max(row["tree_rss_mb"] for name, row in result["workloads"].items()
-              if name.startswith("analyze"))
-    unit = result["unit_read_ms"]["median"]
-
-    def mark(ok: bool) -> str:
-        return "ok  " if ok else "MISS"
-
-    lines.append(f"  {mark(over_raw <= TARGETS['analyze_over_raw_max'])} analyze / raw read "
-                 f"{over_raw:.2f}x (target <= {TARGETS['analyze_over_raw_max']:g}x)")
-    lines.append(f"  {mark(naive >= TARGETS['naive_over_analyze_min'])} naive / analyze "
-                 f"{naive:.2f}x (target >= {TARGETS['naive_over_analyze_min']:g}x)")
-    lines.append(f"  {mark(rss < TARGETS['peak_rss_mb_max'])} analyze peak memory (process "
-                 f"tree) {rss:.0f} MB (target < {TARGETS['peak_rss_mb_max']:g} MB)")
-    lines.append(f"  {mark(unit < TARGETS['unit_read_ms_max'])} unit column read {unit:.1f} ms "
-                 f"median (target < {TARGETS['unit_read_ms_max']:g} ms)")
-    lines.append(f"  info analyze --format json (hashing the file): {result['json_over_raw']:.2f}x "
-                 f"the raw read, {result['naive_over_json']:.2f}x faster than naive")
-    if flat_ratio is not None:
-        lines.append(f"  {mark(flat_ratio < 1.25)} memory flat: analyze peak at this size is "
-                     f"{flat_ratio:.2f}x the first size's (target < 1.25x)")
-    return lines
+def verdict(result: dict, first: dict | None) -> str:
+    """Which targets a cell meets (docs/scale.md): '' when all, else the missed ones."""
+    missed = []
+    limit = TARGETS["gzip_over_raw_max" if result["layout"] == "gzip" else "analyze_over_raw_max"]
+    if result["analyze_over_raw"] > limit:
+        missed.append(f"raw>{limit:g}x")
+    if result["layout"] != "gzip" and result["naive_over_analyze"] < TARGETS["naive_over_analyze_min"]:
+        missed.append(f"naive<{TARGETS['naive_over_analyze_min']:g}x")
+    if result["peak_mb"] >= TARGETS["peak_mb_max"]:
+        missed.append(f"peak>={TARGETS['peak_mb_max']:g}MB")
+    if first is not None and result["peak_mb"] > TARGETS["flat_max"] * first["peak_mb"]:
+        missed.append("memory not flat")
+    if result["unit_read_ms"] is not None and result["unit_read_ms"] > TARGETS["unit_read_ms_max"]:
+        missed.append(f"unit read>{TARGETS['unit_read_ms_max']:g}ms")
+    return "ok" if not missed else "MISS " + ", ".join(missed)
 
 
-def print_table(results: list[dict]) -> None:
-    print(f"{'size GB':>8} {'workload':>13} {'best s':>8} {'median s':>9} {'GB/s':>6} "
-          f"{'CPU s':>6} {'peak MB':>8} {'tree MB':>8}")
-    first_rss = None
+def table(results: list[dict]) -> str:
+    """The Markdown table of every cell and size (what the README shows)."""
+    lines = ["| cell | GB | raw s | analyze s | naive s | analyze / raw | naive / analyze | "
+             "CPU s raw / analyze | peak MB | targets |",
+             "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
+    firsts: dict[str, dict] = {}
     for result in results:
-        for name, row in result["workloads"].items():
-            print(f"{result['size_gb']:8.2f} {name:>13} {row['wall_best_s']:8.2f} "
-                  f"{row['wall_median_s']:9.2f} {row['gb_per_s']:6.2f} {row['cpu_s']:6.2f} "
-                  f"{row['peak_rss_mb']:8.0f} {row['tree_rss_mb']:8.0f}")
-        rss = max(row["tree_rss_mb"] for name, row in result["workloads"].items()
-                  if name.startswith("analyze"))
-        flat = None if first_rss is None else rss / first_rss
-        first_rss = first_rss or rss
-        print("\n".join(verdicts(result, flat)))
+        first = firsts.setdefault(result["cell"], result)
+        w = result["workloads"]
+        lines.append(
+            f"| {result['cell']} | {result['size_gb']:.2f} | {w['raw']['wall_best_s']:.2f} | "
+            f"{w['analyze']['wall_best_s']:.2f} | {w['naive']['wall_best_s']:.2f} | "
+            f"{result['analyze_over_raw']:.2f}x | {result['naive_over_analyze']:.2f}x | "
+            f"{w['raw']['cpu_s']:.2f} / {w['analyze']['cpu_s']:.2f} | {result['peak_mb']:.0f} | {verdict(result, None if first is result else first)} |")
+    return "\n".join(lines)
+
+
+def select(spec: str) -> list[Cell]:
+    if spec == "all":
+        return list(CELLS)
+    if spec == "smoke":
+        return [cell_named(name) for name in SMOKE]
+    return [cell_named(name.strip()) for name in spec.split(",") if name.strip()]
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="actdoc throughput and memory benchmark")
     parser.add_argument("--size-gb", type=float, default=2.0,
-                        help="activation bytes of the main dump, in GB (default 2)")
+                        help="activation bytes of every cell, in GB (default 2)")
     parser.add_argument("--also", type=float, action="append", default=[], metavar="GB",
-                        help="also measure a dump of this size (repeatable; e.g. 4 to show "
-                             "memory stays flat)")
-    parser.add_argument("--repeats", type=int, default=3)
+                        help="also measure at this size (repeatable; e.g. 4: is memory flat?)")
+    parser.add_argument("--cells", default="all",
+                        help="'all', 'smoke', or cell names separated by commas")
+    parser.add_argument("--repeats", type=int, default=1)
+    parser.add_argument("--json", action="store_true",
+                        help="also time --format json (which hashes the file)")
     parser.add_argument("--cache", type=Path, default=HERE / "out" / "cache",
-                        help="folder of generated dumps, reused between runs")
+                        help="folder of generated dumps")
+    parser.add_argument("--keep", action="store_true", help="keep the dumps after measuring")
     parser.add_argument("--out", type=Path, default=HERE / "out",
                         help="folder for the JSON results")
     args = parser.parse_args(argv)
-    results = [measure_size(size, args.repeats, args.cache) for size in [args.size_gb, *args.also]]
+    results = []
+    for cell in select(args.cells):
+        for size in [args.size_gb, *args.also]:
+            result = measure_cell(cell, size, args.repeats, args.cache, args.keep, args.json)
+            results.append(result)
+            print(f"{cell.name} {result['size_gb']:.2f} GB: analyze / raw "
+                  f"{result['analyze_over_raw']:.2f}x, naive / analyze "
+                  f"{result['naive_over_analyze']:.2f}x, peak {result['peak_mb']:.0f} MB",
+                  flush=True)
     print(f"machine: {machine()}")
-    print_table(results)
+    print(table(results))
+    for result in results:
+        if result["json_over_raw"] is not None:
+            print(f"{result['cell']} {result['size_gb']:.1f} GB: analyze --format json "
+                  f"(hashing the file) {result['json_over_raw']:.2f}x the raw read")
+        if result["unit_read_ms"] is not None:
+            print(f"{result['cell']} {result['size_gb']:.1f} GB: unit column read "
+                  f"{result['unit_read_ms']:.1f} ms median")
     args.out.mkdir(parents=True, exist_ok=True)
     stamp = time.strftime("%Y%m%d-%H%M%S")
     payload = {"machine": machine(), "targets": TARGETS, "results": results}

@@ -168,10 +168,26 @@ TABLE: tuple[SettingRow, ...] = (
                "(about two million for 1024 units), far more than 40-64 bins need; more only "
                "slows the pass (binning 4096 rows cost about 15% of a full analysis)",
                "common practice", 1, 1e9, integer=True, low_inclusive=True),
+    SettingRow("histogram_values", 2097152,
+               "histograms use at most about this many values per layer (rows times units), "
+               "so fewer rows of wide layers; whichever of this and histogram_rows is smaller "
+               "sets the sample",
+               "the same two million values as 2048 rows of 1024 units; with rows alone a "
+               "layer of 8192 units binned 17 million values, most of its analysis time",
+               "measured on this project's machines (docs/scale.md)", 1, 1e12, integer=True,
+               low_inclusive=True),
     SettingRow("block_observations", 4096,
-               "observations read per block from the dump",
+               "observations read per block from the dump (at most; block_bytes may cut a "
+               "block shorter)",
                "16 MiB for 1024 float32 units: large reads, flat memory",
                "common practice", 1, 1e9, integer=True, low_inclusive=True),
+    SettingRow("block_bytes", 16777216,
+               "bytes of one stored activation array per block, at most: wide or float64 "
+               "layers get fewer observations per block",
+               "the 16 MiB of 4096 rows of 1024 float32 units; sized in rows alone, blocks of "
+               "a layer of 8192 units took 128 MiB per array and thread",
+               "measured on this project's machines (docs/scale.md)", 4096, 1e12,
+               integer=True, low_inclusive=True),
     SettingRow("read_ahead_blocks", 0,
                "blocks a reader thread fetches ahead while the statistics run (0: off)",
                "overlaps decompression with the statistics on two cores (about 1.5x faster on "
@@ -235,8 +251,12 @@ class Settings:
     """Share of a layer's units at which a unit-level finding is a warning rather than info."""
     histogram_rows: int = _default("histogram_rows")
     """Observation rows per layer, at most about, that feed the histograms."""
+    histogram_values: int = _default("histogram_values")
+    """Values (rows times units) per layer, at most about, that feed the histograms."""
     block_observations: int = _default("block_observations")
-    """Observations read per block from the dump."""
+    """Observations read per block from the dump, at most."""
+    block_bytes: int = _default("block_bytes")
+    """Bytes of one stored activation array per block, at most."""
     read_ahead_blocks: int = _default("read_ahead_blocks")
     """Blocks a reader thread fetches ahead of the statistics (0: no reader thread)."""
 

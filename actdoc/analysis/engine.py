@@ -16,7 +16,8 @@ from typing import Callable
 
 import numpy as np
 
-from actdoc.analysis import verdicts
+from actdoc.analysis import kernel, verdicts
+from actdoc.analysis.accumulate import block_rows
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.stats import LayerStats, accumulate_layer
 from actdoc.digest import BackgroundDigest, file_sha256
@@ -48,6 +49,13 @@ def available_cores() -> int:
         return max(1, os.cpu_count() or 1)
 
 
+def activation_bytes(dump: Dump) -> int:
+    """Stored bytes of every layer's preact and output arrays."""
+    return sum(np.dtype(shape.dtype).itemsize * int(np.prod(shape.shape))
+               for layer in dump.layers for name, shape in layer.info.arrays.items()
+               if name in ("preact", "output"))
+
+
 def _random_access(layer: Layer) -> bool:
     """Whether every activation source can start reading at any sample (a compressed NPZ
     member cannot: it would decompress everything before the range again)."""
@@ -57,7 +65,7 @@ def _random_access(layer: Layer) -> bool:
 def _tasks(dump: Dump, settings: Settings) -> list[tuple[int, int, int, int]]:
     """(layer index, first sample, stop sample, work) pieces, biggest layers' pieces first.
 
-    Range boundaries fall on whole blocks of ``block_observations`` so every block is full.
+    Range boundaries fall on whole blocks (``block_rows``) so every block is full.
     """
     tasks = []
     for index, layer in enumerate(dump.layers):
@@ -66,7 +74,7 @@ def _tasks(dump: Dump, settings: Settings) -> list[tuple[int, int, int, int]]:
         if not stored or info.samples == 0:
             continue
         row_bytes = sum(np.dtype(a.dtype).itemsize * int(np.prod(a.shape[1:])) for a in stored)
-        block = max(1, settings.block_observations // max(1, info.positions))
+        block = max(1, block_rows(info, settings) // max(1, info.positions))
         pieces = 1
         if _random_access(layer):
             pieces = max(1, min(-(-info.samples * row_bytes // TASK_BYTES),
@@ -136,6 +144,8 @@ def analyze(dump: Dump, settings: Settings | None = None,
     settings = settings or Settings()
     if progress is not None:
         progress(0.0)
+    if kernel.worth_loading(activation_bytes(dump)):
+        kernel.start_loading()  # loads beside the pass; numpy measures until it is ready
     hashing = None
     if source is None:
         source = source_info(dump, digest=False)

@@ -57,86 +57,113 @@ class Grid:
     def count(self, values: np.ndarray) -> np.ndarray:
         """Counts per bin of ``values`` (outer bins take the overflow and +-inf; NaN dropped).
 
-        float32 input goes through a lookup table that gives exactly the bins of the float64
-        arithmetic below (``Float32Bins``), about three times faster; anything else, and any
-        input holding a non-finite value, takes the arithmetic directly.
+        float32 and float64 input goes through a lookup table that gives exactly the bins of
+        the float64 arithmetic below (``TableBins``), several times faster; anything else takes
+        the arithmetic directly. Any shape is accepted; strided views are not copied.
         """
-        flat = np.asarray(values).reshape(-1)
-        if flat.dtype == np.float32:
-            table = float32_bins(self)
-            counts = None if table is None else table.count(flat)
-            if counts is not None:
-                return counts
-        position = self.positions(flat)
+        values = np.asarray(values)
+        if values.dtype in (np.float32, np.float64):
+            table = table_bins(self, values.dtype)
+            if table is not None:
+                return table.count(values)
+        position = self.positions(values)
         position = position[~np.isnan(position)]
         np.minimum(np.maximum(position, 0, out=position), self.bins - 1, out=position)
         return np.bincount(position.astype(np.intp), minlength=self.bins).astype(np.int64)
 
 
-class Float32Bins:
-    """A grid's bins for float32 values, by table lookup on the top 16 bits of each value.
+#: Leading bits of a value that pick its table entry: sign, exponent and 7 (float32) or 6
+#: (float64) mantissa bits, buckets under 1.6% wide, each holding at most one bin edge of
+#: these grids (checked when a table is built).
+TABLE_BITS = {np.dtype(np.float32): 16, np.dtype(np.float64): 18}
+UNSIGNED = {np.dtype(np.float32): np.uint32, np.dtype(np.float64): np.uint64}
+#: Slots after the last bin: the +inf bucket (NaN stays, +inf moves one up), the -inf bucket
+#: (likewise), and the buckets holding only NaN.
+PLUS_INF, MINUS_INF, NAN = 0, 2, 4
 
-    ``thresholds[k - 1]`` is the smallest float32 whose float64 grid position is at least k, so
-    a value's bin is the number of thresholds at or below it: exactly what ``Grid.count``'s
-    arithmetic gives, found by bisection once per grid. ``table`` maps the top 16 bits (sign,
-    exponent, 7 mantissa bits) to the bin of the smallest value sharing them; one comparison
-    with the next threshold finishes the job, since no 16-bit bucket (0.8% wide) holds two
-    thresholds of these grids (checked when the table is built). Infinite and NaN buckets map
-    past the last bin, and their presence sends the input back to the arithmetic path.
+
+class TableBins:
+    """A grid's bins for float32 or float64 values, by table lookup on their leading bits.
+
+    ``thresholds[k - 1]`` is the smallest value of the dtype whose float64 grid position is at
+    least k, so a value's bin is the number of thresholds at or below it: exactly what
+    ``Grid.count``'s arithmetic gives, found by bisection once per grid. ``table`` maps the
+    leading bits (``TABLE_BITS``) to the bin of the smallest value sharing them; one comparison
+    with the next threshold finishes the job, since no bucket holds two thresholds. The two
+    buckets of the infinities also hold NaNs: one comparison (true for the infinity, false for
+    NaN) separates them, so +inf and -inf land in the outer bins and NaN is dropped, as in the
+    arithmetic, without a separate pass over the values.
     """
 
-    def __init__(self, thresholds: np.ndarray, table: np.ndarray, bins: int):
+    def __init__(self, thresholds: np.ndarray, table: np.ndarray, bins: int, dtype: np.dtype):
         self.bins = bins
         self.table = table
-        self.next_threshold = np.concatenate(
-            [thresholds, np.full(2, np.inf, np.float32)]).astype(np.float32)
+        self.dtype = np.dtype(dtype)
+        self.unsigned = UNSIGNED[self.dtype]
+        self.shift = self.unsigned(self.dtype.itemsize * 8 - TABLE_BITS[self.dtype])
+        inf = np.inf
+        tail = [inf, inf, inf, -inf, inf, inf]  # last bin, PLUS_INF .. NAN slots
+        self.next_threshold = np.concatenate([thresholds, tail]).astype(self.dtype)
 
-    def count(self, values: np.ndarray) -> np.ndarray | None:
-        index = self.table[values.view(np.uint32) >> 16]
+    def count(self, values: np.ndarray) -> np.ndarray:
+        index = self.table[values.view(self.unsigned) >> self.shift]
         index += values >= self.next_threshold[index]
-        counts = np.bincount(index, minlength=self.bins + 2)
-        if counts[self.bins:].any():
-            return None
-        return counts[: self.bins].astype(np.int64)
+        counts = np.bincount(index.reshape(-1), minlength=self.bins + NAN + 1)
+        result = counts[: self.bins].astype(np.int64)
+        result[-1] += counts[self.bins + PLUS_INF + 1]
+        result[0] += counts[self.bins + MINUS_INF + 1]
+        return result
 
 
-def _ordered_to_float32(keys: np.ndarray) -> np.ndarray:
-    """Inverse of the monotone map float32 -> int64 (negative values mirrored below zero)."""
-    bits = np.where(keys >= 0, keys, np.int64(0x80000000) | -keys).astype(np.uint32)
-    return bits.view(np.float32)
+def _from_keys(keys: np.ndarray, dtype: np.dtype) -> np.ndarray:
+    """Inverse of the monotone map float -> int64 (negative values mirrored below zero)."""
+    unsigned = UNSIGNED[dtype]
+    sign = unsigned(1) << unsigned(dtype.itemsize * 8 - 1)
+    magnitude = np.abs(keys).astype(unsigned)
+    return np.where(keys >= 0, magnitude, magnitude | sign).astype(unsigned).view(dtype)
 
 
 @lru_cache(maxsize=None)
-def _float32_bins(low: float, high: float, bins: int, scale: float | None) -> Float32Bins | None:
+def _table_bins(low: float, high: float, bins: int, scale: float | None,
+                dtype: np.dtype) -> TableBins | None:
     grid = Grid(low, high, bins, scale)
+    unsigned = UNSIGNED[dtype]
+    width = dtype.itemsize * 8
+    inf_key = int(np.array(np.inf, dtype).view(unsigned))
     wanted = np.arange(1, bins, dtype=np.float64)
-    below = np.full(bins - 1, -0x7F800000, np.int64)  # -inf: position < k
-    above = np.full(bins - 1, 0x7F800000, np.int64)  # +inf: position >= k
+    below = np.full(bins - 1, -inf_key, np.int64)  # -inf: position < k
+    above = np.full(bins - 1, inf_key, np.int64)  # +inf: position >= k
     with np.errstate(invalid="ignore", over="ignore"):
-        while (above - below > 1).any():
-            middle = below + (above - below) // 2
-            reached = grid.positions(_ordered_to_float32(middle)) >= wanted
+        while (above > below + 1).any():  # floor of the mean without int64 overflow
+            middle = (below >> 1) + (above >> 1) + (below & above & 1)
+            reached = grid.positions(_from_keys(middle, dtype)) >= wanted
             above = np.where(reached, middle, above)
             below = np.where(reached, below, middle)
-        thresholds = _ordered_to_float32(above)
-        buckets = np.arange(1 << 16, dtype=np.int64)
-        negative = buckets >= 1 << 15
+        thresholds = _from_keys(above, dtype)
+        shift = unsigned(width - TABLE_BITS[dtype])
+        buckets = np.arange(1 << TABLE_BITS[dtype], dtype=np.uint64).astype(unsigned)
+        negative = buckets >= (1 << (TABLE_BITS[dtype] - 1))
+        rest = (unsigned(1) << shift) - unsigned(1)
+        start = buckets << shift
         # Smallest and largest value of each bucket (negative buckets run the other way).
-        lowest = np.where(negative, (buckets << 16) | 0xFFFF, buckets << 16).astype(np.uint32)
-        highest = np.where(negative, buckets << 16, (buckets << 16) | 0xFFFF).astype(np.uint32)
-        lowest, highest = lowest.view(np.float32), highest.view(np.float32)
+        lowest = np.where(negative, start | rest, start).astype(unsigned).view(dtype)
+        highest = np.where(negative, start, start | rest).astype(unsigned).view(dtype)
         first = np.searchsorted(thresholds, lowest, side="right")
         last = np.searchsorted(thresholds, highest, side="right")
     finite = np.isfinite(lowest) & np.isfinite(highest)
     if ((last - first)[finite] > 1).any() or (np.diff(thresholds) <= 0).any():
         return None  # a bucket would need two comparisons: keep the arithmetic path
-    table = np.where(finite, first, bins).astype(np.int16)
-    return Float32Bins(thresholds, table, bins)
+    table = np.where(finite, first, bins + NAN).astype(np.int16)
+    infinities = np.array([np.inf, -np.inf], dtype).view(unsigned) >> shift
+    table[int(infinities[0])] = bins + PLUS_INF
+    table[int(infinities[1])] = bins + MINUS_INF
+    return TableBins(thresholds, table, bins, dtype)
 
 
-def float32_bins(grid: Grid) -> Float32Bins | None:
-    """The lookup table of ``grid`` (built once per grid), or None where it cannot be exact."""
-    return _float32_bins(grid.low, grid.high, grid.bins, grid.scale)
+def table_bins(grid: Grid, dtype=np.float32) -> TableBins | None:
+    """The lookup table of ``grid`` for float32 or float64 values (built once per grid and
+    dtype), or None where it cannot be exact."""
+    return _table_bins(grid.low, grid.high, grid.bins, grid.scale, np.dtype(dtype))
 
 
 ASINH_GRID = Grid(-math.asinh(ASINH_EXTENT / ASINH_SCALE), math.asinh(ASINH_EXTENT / ASINH_SCALE),
@@ -156,9 +183,14 @@ def grids_for(kind: Kind) -> dict[str, Grid]:
     return {"preact": ASINH_GRID, "output": output}
 
 
-def sample_stride(observations: int, rows_wanted: int) -> int:
-    """Every k-th observation row is histogrammed: at most about ``rows_wanted`` in all."""
-    return max(1, -(-observations // max(1, rows_wanted)))
+def sample_stride(observations: int, rows_wanted: int, units: int = 1,
+                  values_wanted: int | None = None) -> int:
+    """Every k-th observation row is histogrammed: at most about ``rows_wanted`` rows in all,
+    and at most about ``values_wanted`` values (rows of ``units`` values each)."""
+    rows = max(1, rows_wanted)
+    if values_wanted is not None:
+        rows = min(rows, max(1, values_wanted // max(1, units)))
+    return max(1, -(-observations // rows))
 
 
 def sampled_rows(block: np.ndarray, first_row: int, stride: int) -> np.ndarray:

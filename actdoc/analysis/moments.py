@@ -112,6 +112,27 @@ class PowerSums:
         np.multiply(scratch, scratch, out=scratch)
         sums[4] += np.add.reduce(scratch, axis=0)
 
+    def needs_shift(self, cols: slice) -> bool:
+        """Whether the units ``cols`` have no shift yet (their first slice is next)."""
+        return not self._shifted[cols].all()
+
+    def shift_of(self, cols: slice) -> np.ndarray:
+        if self.shift is None:
+            self.shift = np.zeros(self.sums.shape[1])
+        return self.shift[cols]
+
+    def add_partial(self, cols: slice, count: int, partial: np.ndarray,
+                    shift: np.ndarray | None = None) -> None:
+        """Add a slice's sums of (x - K)^p, p = 1..4 (``partial``, [4, units]), over ``count``
+        rows of the units ``cols``, computed elsewhere (the fused kernel) exactly as ``add``
+        computes them; ``shift`` sets K where the slice was the units' first."""
+        if shift is not None:
+            self.shift_of(cols)[:] = shift
+            self._shifted[cols] = True
+        sums = self.sums[:, cols]
+        sums[0] += count
+        sums[1:] += partial
+
     def moments(self) -> Moments:
         """Central moments from the shifted power sums."""
         n, s1, s2, s3, s4 = self.sums

@@ -27,7 +27,7 @@ from typing import Callable, Iterator
 
 import numpy as np
 
-from actdoc.analysis.accumulate import Accumulator
+from actdoc.analysis.accumulate import Accumulator, block_rows
 from actdoc.analysis.defaults import Settings
 from actdoc.analysis.histograms import grids_for
 from actdoc.analysis.moments import Moments
@@ -225,36 +225,37 @@ def accumulate_layer(
         return stats
     acc = Accumulator(stats, settings, layer.info.observations)
     units = stats.units
+    block = block_rows(layer.info, settings)
     tiled = None if settings.read_ahead_blocks > 0 else paired_tiles(
-        layer, settings.block_observations, start_sample, stop_sample)
+        layer, block, start_sample, stop_sample)
     side = stats.side
     if tiled is not None:  # uncompressed storage seen in place: no block is copied
-        for block_rows, tiles in tiled:
+        for rows, tiles in tiled:
             bad = int(stats.nonfinite.sum())
             acc.add_block(tiles)
             side.add_tiles(tiles, stats, int(stats.nonfinite.sum()) != bad)
-            stats.rows += block_rows
+            stats.rows += rows
             if progress is not None:
-                progress(block_rows)
+                progress(rows)
     else:
         first_row = start_sample * layer.info.positions
-        blocks = layer.paired_blocks(settings.block_observations, start_sample=start_sample,
+        blocks = layer.paired_blocks(block, start_sample=start_sample,
                                      stop_sample=stop_sample)
         if settings.read_ahead_blocks > 0:
             blocks = _read_ahead(blocks, settings.read_ahead_blocks)
         for z, y in blocks:
-            block_rows = (y if y is not None else z).shape[0]
+            rows = (y if y is not None else z).shape[0]
             bad = int(stats.nonfinite.sum())
             tile = [(first_row, slice(0, units), z, y)]
             acc.add_block(tile)
             side.add_tiles(tile, stats, int(stats.nonfinite.sum()) != bad)
-            stats.rows += block_rows
-            first_row += block_rows
+            stats.rows += rows
+            first_row += rows
             if progress is not None:
-                progress(block_rows)
+                progress(rows)
     if stats.kind is Kind.STOCHASTIC_BINARY and "output" not in stats.arrays:
         stats.active = stats.count - stats.low
     if side.grad_squares is not None:
-        side.add_gradient(layer, settings.block_observations, start_sample,
+        side.add_gradient(layer, block, start_sample,
                           layer.info.samples if stop_sample is None else stop_sample)
     return stats

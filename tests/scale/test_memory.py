@@ -122,3 +122,29 @@ def test_peak_resident_memory_stays_far_below_the_dump_size(big_dump, big_npz, c
     peak_mb, size_mb = int(peak_kib) / 1024, path.stat().st_size / 2**20
     assert status == "0" and size_mb > 600
     assert peak_mb < 300, f"peak {peak_mb:.0f} MB while analysing {size_mb:.0f} MB"
+
+
+@pytest.fixture(scope="module")
+def wide_contiguous(tmp_path_factory) -> Path:
+    """A plain h5py dump of 8192-unit layers, stored contiguously, outputs only: a contiguous
+    dataset is one tile as wide as the layer, the case sized in rows used to blow up."""
+    from benchmarks.cells import cell_named, write_cell
+    cell = cell_named("contiguous-8192-out-32")
+    path = tmp_path_factory.mktemp("wide") / "wide.h5"
+    return write_cell(cell, path, cell.samples_for(DUMP_GB))
+
+
+@pytest.mark.slow
+def test_wide_contiguous_outputs_are_measured_under_an_address_space_limit(wide_contiguous):
+    size_mb = wide_contiguous.stat().st_size / 2**20
+    assert size_mb > LIMIT_MB * 1.4, "the dump must be clearly larger than the limit"
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MALLOC_ARENA_MAX="2")
+    done = subprocess.run([sys.executable, "-c", LIMITED_ANALYZE, str(LIMIT_MB),
+                           str(wide_contiguous)], capture_output=True, text=True, env=env,
+                          timeout=240)
+    assert done.returncode == 0, done.stderr[-2000:]
+    document = json.loads(done.stdout)
+    dead = {f["layer"]: f["units"] for f in document["findings"] if f["check"] == "dead"}
+    # Reference: a plain numpy count over the stored outputs (no actdoc code involved).
+    for layer in ("layer1", "layer4"):
+        assert dead[layer] == never_positive_units(wide_contiguous, layer)
