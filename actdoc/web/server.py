@@ -15,6 +15,7 @@ from waitress.task import ErrorTask
 from actdoc.confine import JobLimits
 from actdoc.io.limits import ReadLimits
 from actdoc.web.app import LOOPBACK_HOSTS, create_app
+from actdoc.web.headers import SECURITY_HEADERS
 from actdoc.workspace import DEFAULT_MAX_UPLOAD_BYTES
 
 DEFAULT_PORT = 8150
@@ -24,7 +25,8 @@ THREADS = 8
 
 class JsonErrorTask(ErrorTask):
     """waitress's own error answers (a body past the upload limit, a malformed request) as
-    ``{"error": ...}`` like every other answer of the dashboard, not as plain text."""
+    ``{"error": ...}`` with the security headers, like every other answer of the dashboard,
+    not as plain text: the app never sees these requests, so its ``after_request`` cannot."""
 
     def execute(self):
         error = self.request.error
@@ -37,6 +39,7 @@ class JsonErrorTask(ErrorTask):
         body = json.dumps({"error": sentence}).encode("utf-8")
         self.status = f"{error.code} {error.reason}"
         self.response_headers.append(("Content-Type", "application/json"))
+        self.response_headers.extend(SECURITY_HEADERS.items())
         self.set_close_on_finish()
         self.content_length = len(body)
         self.write(body)

@@ -11,6 +11,7 @@ import threading
 import pytest
 
 from actdoc.web import create_app
+from actdoc.web.headers import SECURITY_HEADERS
 from actdoc.web.server import create_server
 from tests.support.confine import request
 from tests.support.web import stop_server
@@ -61,14 +62,20 @@ def test_a_declared_body_far_past_the_limit_is_refused_by_waitress_as_json(live)
     headers = dict(line.split(": ", 1) for line in lines[1:])
     message = assert_json_413(int(lines[0].split()[1]), headers, data)
     assert message == "the request passes the dashboard's upload limit of 1 MiB"
+    # waitress's own answer carries the security headers of every other answer.
+    for name, value in SECURITY_HEADERS.items():
+        assert headers[name] == value
     assert list((workspace.root / "tmp").iterdir()) == []
 
 
 def test_a_chunked_body_past_the_limit_is_refused_as_json(live):
     host, _workspace = live
     data, content_type = body_of(2 * LIMIT)
-    assert_json_413(*request(host, "POST", "/api/dumps", data, {"Content-Type": content_type},
-                             chunked=True))
+    status, headers, answer = request(host, "POST", "/api/dumps", data,
+                                      {"Content-Type": content_type}, chunked=True)
+    assert_json_413(status, headers, answer)
+    for name, value in SECURITY_HEADERS.items():
+        assert headers[name] == value
 
 
 def test_a_file_just_past_the_limit_is_refused_by_the_app_as_json(live):
