@@ -287,7 +287,8 @@ class NPZReader:
 
         keys = [k for k in members if k != META_KEY]
         if META_KEY not in members and statedict.looks_like_state_dict(keys):
-            return statedict.raw_layers(keys, source), None
+            probe = source(PROBE_KEY) if PROBE_KEY in members else None
+            return statedict.raw_layers(keys, source), probe
         meta = read_meta(members[META_KEY], path) if META_KEY in members else []
         grouped: dict[str, dict[str, Any]] = {}
         for key in keys:

@@ -5,6 +5,8 @@ dtype, shape and byte range, then the raw bytes. The reader recognises it by tha
 first bytes (never by its name), checks the whole header against the file before any tensor is
 read (sizes, ranges inside the file, dtypes), and hands the tensors named ``<layer>.weight`` and
 ``<layer>.bias`` to the state-dict rules of docs/contract.md section 3 (``actdoc.io.statedict``).
+A tensor named ``probe/input`` (else ``probe.input``) is the file's probe, which the forward pass
+runs over (docs/dump-layout.md, "Forward pass over a probe").
 
 The format stores tensors sorted by dtype and name, so the file does not keep the forward order.
 The layers are put in the one order in which every layer's fan-in equals the previous layer's
@@ -134,7 +136,7 @@ def check_entry(path: Path, key: str, entry: Any, data_bytes: int) -> None:
                              f"{data_bytes} data bytes (truncated or corrupt)")
     dtype = entry["dtype"]
     if dtype not in DTYPES:
-        if statedict.parameter_of(key) is None:
+        if statedict.parameter_of(key) is None and key not in PROBE_NAMES:
             return  # a tensor actdoc never reads (e.g. float8 buffers) may be any type
         raise InvalidDump(f"{where}: dtype {dtype} is not accepted; expected F16, BF16, F32 or "
                           f"F64")
@@ -183,6 +185,11 @@ def chain_order(layers: list[RawLayer]) -> list[RawLayer] | None:
     return [layers[i] for i in found[0]]
 
 
+#: Tensor names taken as the probe input (the samples a forward pass runs over), in order of
+#: preference: the dump layout's ``probe/input`` first, then the dotted ``probe.input``.
+PROBE_NAMES = ("probe/input", "probe.input")
+
+
 class SafetensorsReader:
     """The reader contract for safetensors state dicts (weights only)."""
 
@@ -215,7 +222,10 @@ class SafetensorsReader:
         if chained is not None:
             layers = [RawLayer(layer.name, layer.attrs, layer.arrays, position)
                       for position, layer in enumerate(chained)]
-        return RawDump(path=path, format="safetensors", layers=tuple(layers),
+        probe_key = next((name for name in PROBE_NAMES if name in header), None)
+        probe = (None if probe_key is None
+                 else TensorSource(path, probe_key, header[probe_key], data_start))
+        return RawDump(path=path, format="safetensors", layers=tuple(layers), probe_input=probe,
                        ordering="position" if chained is not None else "natural")
 
 

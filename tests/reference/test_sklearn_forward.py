@@ -142,3 +142,46 @@ def test_probe_errors_are_one_sentence(checkpoint, capsys, monkeypatch, args, me
     assert main(["analyze", str(path), "--activation", "relu", *args]) == 2
     err = capsys.readouterr().err
     assert message in err and err.count("\n") == 1
+
+
+def save_with_embedded_probe(kind: str, clf, X, path) -> None:
+    """The state dict with the probe inside the file itself (docs/dump-layout.md, "Forward pass
+    over a probe"): ``probe/input`` in NPZ and HDF5; in safetensors ``probe/input`` or
+    ``probe.input``."""
+    tensors = state_dict(clf)
+    if kind == "npz":
+        with open(path, "wb") as handle:
+            np.savez(handle, **tensors, **{"probe/input": X})
+    elif kind == "hdf5":
+        import h5py
+
+        with h5py.File(path, "w") as handle:
+            for name, array in tensors.items():
+                handle[name] = array
+            handle.create_group("probe")["input"] = X
+    else:
+        from safetensors.numpy import save_file
+
+        save_file({**tensors, kind.split(":")[1]: np.ascontiguousarray(X)}, str(path))
+
+
+@pytest.mark.parametrize("kind", ["npz", "hdf5", "safetensors:probe/input",
+                                  "safetensors:probe.input"])
+def test_a_probe_stored_in_a_state_dict_is_run_without_the_option(trained, tmp_path, capsys,
+                                                                  kind):
+    """An upload cannot pass --probe: the state dict's own probe gives the forward-pass findings,
+    whose dead sets are the units scikit-learn's own hidden activations never lift above 0."""
+    clf, X, activations = trained
+    path = tmp_path / ("mlp." + kind.split(":")[0].replace("hdf5", "h5"))
+    save_with_embedded_probe(kind, clf, X, path)
+    assert main(["analyze", str(path), "--activation", "relu", "--format", "json"]) == 0
+    document = json.loads(capsys.readouterr().out)
+    assert document["source"]["samples"] == X.shape[0]
+    for name, acts in zip(("hidden1", "hidden2"), activations[1:3]):
+        silent = sorted(np.flatnonzero((acts > 0).sum(axis=0) == 0).tolist())
+        assert silent
+        dead = [f["units"] for f in document["findings"]
+                if f["layer"] == name and f["check"] == "dead"]
+        assert dead == [silent]
+        layer = next(entry for entry in document["layers"] if entry["name"] == name)
+        assert "forward pass" in layer["activation_note"]
