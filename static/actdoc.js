@@ -45,7 +45,9 @@
   function upload(zone, file) {
     var message = zone.querySelector(".message");
     var body = new FormData();
+    var kinds = zone.querySelector("input[name=activation]");
     body.append("file", file);
+    if (kinds && kinds.value.trim()) body.append("activation", kinds.value);
     message.className = "message";
     message.textContent = "Sending " + file.name + " …";
     fetch(zone.dataset.api, { method: "POST", body: body, headers: { Accept: "application/json" } })

@@ -57,9 +57,10 @@ def pick_reader(path: Path) -> Any:
     raise UnsupportedFormat(f"{where}: neither HDF5 nor NPZ (it starts with {head[:8]!r}){hint}")
 
 
-def parse_activations(specs: Sequence[str], path: Path) -> tuple[ActivationKind | None,
-                                                                 dict[str, ActivationKind]]:
-    """``--activation`` values: one bare ``KIND`` and/or repeated ``LAYER=KIND``."""
+def parse_activations(specs: Sequence[str], path: Path, option: str = "--activation"
+                      ) -> tuple[ActivationKind | None, dict[str, ActivationKind]]:
+    """``--activation`` values: one bare ``KIND`` and/or repeated ``LAYER=KIND``; ``option``
+    names where they came from in the error sentences."""
     default: ActivationKind | None = None
     per_layer: dict[str, ActivationKind] = {}
     for spec in specs:
@@ -68,11 +69,11 @@ def parse_activations(specs: Sequence[str], path: Path) -> tuple[ActivationKind 
             where = describe(path, layer.strip())
             per_layer[layer.strip()] = ActivationKind.parse(kind, where)
         elif default is not None:
-            raise InvalidDump(f"{describe(path)}: --activation gives more than one kind for "
+            raise InvalidDump(f"{describe(path)}: {option} gives more than one kind for "
                               f"every layer ('{default.value}' and '{kind}'); use LAYER=KIND "
                               f"for the exceptions")
         else:
-            default = ActivationKind.parse(kind, f"{describe(path)}, --activation")
+            default = ActivationKind.parse(kind, f"{describe(path)}, {option}")
     return default, per_layer
 
 

@@ -2,9 +2,13 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 from flask import Blueprint, Response, current_app, jsonify, request, url_for
 from werkzeug.exceptions import BadRequest, NotFound
 
+from actdoc.errors import ActdocError
+from actdoc.io import parse_activations
 from actdoc.reports import MEDIA_TYPES, render
 from actdoc.web.headers import attachment
 from actdoc.workspace import DumpRecord, UploadSpool
@@ -20,8 +24,23 @@ def state():
     return current_app.extensions["actdoc"]
 
 
+def declared_activations(file_name: str) -> tuple[str, ...]:
+    """The optional multipart fields ``activation`` (repeatable, each one or more specs
+    separated by commas): the command line's ``--activation`` syntax, one bare ``KIND`` and/or
+    ``LAYER=KIND``. A kind actdoc does not know is a 400 before anything is stored; a layer
+    name is checked against the file when the readers open it."""
+    specs = tuple(part.strip() for value in request.form.getlist("activation")
+                  for part in value.split(",") if part.strip())
+    try:
+        parse_activations(specs, Path(file_name), option="the field 'activation'")
+    except ActdocError as error:
+        raise BadRequest(error.message) from None
+    return specs
+
+
 def receive_upload() -> tuple[DumpRecord, bool]:
-    """Adopt this request's multipart field ``file`` into the workspace and queue it.
+    """Adopt this request's multipart field ``file`` into the workspace and queue it, with the
+    activation kinds its ``activation`` fields declare (declared_activations).
 
     Returns the record and whether it is new (False: the same bytes were already stored).
     The readers check the file in the background runner, never inside this request.
@@ -31,11 +50,12 @@ def receive_upload() -> tuple[DumpRecord, bool]:
     upload = request.files.get("file")
     if upload is None or not upload.filename:
         raise BadRequest("the request holds no file in the multipart field 'file'")
+    activations = declared_activations(upload.filename)
     workspace = state().workspace
     if isinstance(upload.stream, UploadSpool):
-        record, created = workspace.adopt(upload.stream)
+        record, created = workspace.adopt(upload.stream, activations)
     else:
-        record, created = workspace.ingest(upload.stream, upload.filename)
+        record, created = workspace.ingest(upload.stream, upload.filename, activations)
     if created:
         workspace.submit(record.id)
     return record, created

@@ -98,7 +98,8 @@ class Workspace:
         """A spool in ``tmp/`` to stream an upload into (pass it to ``adopt`` when complete)."""
         return UploadSpool(self.store.tmp, file_name or "upload", self.max_upload_bytes)
 
-    def ingest(self, stream: BinaryIO, file_name: str | None) -> tuple[DumpRecord, bool]:
+    def ingest(self, stream: BinaryIO, file_name: str | None,
+               activations: tuple[str, ...] = ()) -> tuple[DumpRecord, bool]:
         """Store a readable stream as a dump; returns the record and whether it is new."""
         spool = self.begin_upload(file_name)
         try:
@@ -107,18 +108,20 @@ class Workspace:
         except BaseException:
             spool.discard()
             raise
-        return self.adopt(spool)
+        return self.adopt(spool, activations)
 
     def ingest_path(self, path: str | Path) -> tuple[DumpRecord, bool]:
         with open(path, "rb") as stream:
             return self.ingest(stream, Path(path).name)
 
-    def adopt(self, spool: UploadSpool) -> tuple[DumpRecord, bool]:
-        """Store a complete upload and put it in the catalog as ``queued``.
+    def adopt(self, spool: UploadSpool,
+              activations: tuple[str, ...] = ()) -> tuple[DumpRecord, bool]:
+        """Store a complete upload and put it in the catalog as ``queued``, with the activation
+        kinds declared for it (``--activation`` syntax, already parsed by the caller).
 
         Only the leading bytes are looked at here (a file of neither kind raises the readers'
         UnsupportedFormat and leaves nothing behind); the readers check the rest in the
-        background. Bytes already stored return the existing record.
+        background. Bytes already stored return the existing record (and its kinds).
         """
         try:
             sha256 = spool.finish()
@@ -130,7 +133,7 @@ class Workspace:
                 id=sha256[:16], name=spool.name, sha256=sha256, size=spool.size,
                 format=dump_format, status="queued", progress=0.0, error=None,
                 created=time.time(), layers=0, samples=0, critical=None, warning=None,
-                healthy=None)
+                healthy=None, activations=tuple(activations))
             # The same bytes may have landed meanwhile. Store and insert under one lock, so a
             # second upload never replaces a stored file.
             with self._store_lock:
@@ -176,7 +179,9 @@ class Workspace:
         reach the pages that call this, so the file already passed the confined check."""
         from actdoc.io import open_dump
 
-        return open_dump(self.dump_path(self.get(dump_id)), limits=self.read_limits)
+        record = self.get(dump_id)
+        return open_dump(self.dump_path(record), activations=record.activations,
+                         limits=self.read_limits)
 
     def delete(self, dump_id: str) -> None:
         """Remove the row first (so no page shows a half-deleted dump), then stop its analysis,

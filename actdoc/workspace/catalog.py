@@ -3,6 +3,7 @@ runner's writes. Only rows live here; files are the store's (store.py)."""
 
 from __future__ import annotations
 
+import json
 import sqlite3
 import time
 from contextlib import closing
@@ -31,13 +32,15 @@ CREATE TABLE IF NOT EXISTS dumps (
     warning   INTEGER,
     healthy   INTEGER,
     attempts  INTEGER NOT NULL DEFAULT 0,
-    phase     TEXT NOT NULL DEFAULT 'waiting'
+    phase     TEXT NOT NULL DEFAULT 'waiting',
+    activations TEXT NOT NULL DEFAULT '[]'
 )
 """
 
 #: Columns added after the first release, with their definitions: older catalogs gain them.
 _ADDED_COLUMNS = {"attempts": "INTEGER NOT NULL DEFAULT 0",
-                  "phase": "TEXT NOT NULL DEFAULT 'waiting'"}
+                  "phase": "TEXT NOT NULL DEFAULT 'waiting'",
+                  "activations": "TEXT NOT NULL DEFAULT '[]'"}
 #: What an older catalog's rows get when a column is added: a dump whose layers were counted
 #: (every ready one) had been checked.
 _BACKFILL = {"phase": "UPDATE dumps SET phase = 'checked' WHERE status = 'ready' OR layers > 0"}
@@ -67,7 +70,9 @@ class NotReady(RuntimeError):
 class DumpRecord:
     """One catalog row. ``attempts`` counts the checks and analyses started for it that never
     ended with an answer (the runner gives up after a few); ``phase`` is one of PHASES: until it
-    is ``checked``, ``layers`` and ``samples`` are unknown (stored as 0, shown as unknown)."""
+    is ``checked``, ``layers`` and ``samples`` are unknown (stored as 0, shown as unknown).
+    ``activations`` are the kinds declared with the upload, in the command line's
+    ``--activation`` syntax (stored as a JSON list), used whenever the dump is opened."""
 
     id: str
     name: str
@@ -85,6 +90,7 @@ class DumpRecord:
     healthy: int | None
     attempts: int = 0
     phase: str = "waiting"
+    activations: tuple[str, ...] = ()
 
     @property
     def ready(self) -> bool:
@@ -121,8 +127,14 @@ class DumpRecord:
             "samples": self.samples if self.checked else None,
             "checked": self.checked, "stage": self.stage,
             "created": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(self.created)),
-            "verdicts": verdicts,
+            "verdicts": verdicts, "activation": list(self.activations),
         }
+
+
+def _record(row: sqlite3.Row) -> DumpRecord:
+    values = dict(row)
+    values["activations"] = tuple(json.loads(values.get("activations") or "[]"))
+    return DumpRecord(**values)
 
 
 class Catalog:
@@ -150,14 +162,14 @@ class Catalog:
         """Every dump, newest first."""
         with closing(self._connect()) as db:
             rows = db.execute("SELECT * FROM dumps ORDER BY created DESC, name").fetchall()
-        return [DumpRecord(**dict(row)) for row in rows]
+        return [_record(row) for row in rows]
 
     def get(self, dump_id: str) -> DumpRecord:
         with closing(self._connect()) as db:
             row = db.execute("SELECT * FROM dumps WHERE id = ?", (dump_id,)).fetchone()
         if row is None:
             raise UnknownDump(dump_id)
-        return DumpRecord(**dict(row))
+        return _record(row)
 
     def exists(self, dump_id: str) -> bool:
         with closing(self._connect()) as db:
@@ -166,7 +178,7 @@ class Catalog:
     def find_sha(self, sha256: str) -> DumpRecord | None:
         with closing(self._connect()) as db:
             row = db.execute("SELECT * FROM dumps WHERE sha256 = ?", (sha256,)).fetchone()
-        return None if row is None else DumpRecord(**dict(row))
+        return None if row is None else _record(row)
 
     def hashes(self) -> set[str]:
         """The SHA-256 of every stored dump (the store keeps only files these name)."""
@@ -175,6 +187,7 @@ class Catalog:
 
     def insert(self, record: DumpRecord) -> None:
         fields = asdict(record)
+        fields["activations"] = json.dumps(list(record.activations))
         with closing(self._connect()) as db, db:
             db.execute(f"INSERT INTO dumps ({', '.join(fields)}) "
                        f"VALUES ({', '.join('?' for _ in fields)})", tuple(fields.values()))
@@ -223,4 +236,4 @@ class Catalog:
         with closing(self._connect()) as db:
             rows = db.execute("SELECT * FROM dumps WHERE status IN ('queued', 'analysing') "
                               "ORDER BY created").fetchall()
-        return [DumpRecord(**dict(row)) for row in rows]
+        return [_record(row) for row in rows]

@@ -133,7 +133,7 @@ class Runner:
         attempts = self.catalog.claim_check(dump_id)
         job = Job(target=str(self.store.dump_path(record.sha256, record.name)),
                   read_limits=self.read_limits, source_file=record.name,
-                  source_sha256=record.sha256)
+                  source_sha256=record.sha256, activations=record.activations)
         try:
             outcome = run_confined(job, self.job_limits, record.name,
                                    on_checked=lambda facts: self._record_check(dump_id, facts),
@@ -175,7 +175,8 @@ class Runner:
 
         job = Job(target=str(self.store.dump_path(record.sha256, record.name)),
                   archive=str(scratch), read_limits=self.read_limits,
-                  source_file=record.name, source_sha256=record.sha256)
+                  source_file=record.name, source_sha256=record.sha256,
+                  activations=record.activations)
         try:
             outcome = run_confined(job, self.job_limits, record.name,
                                    on_checked=lambda facts: self._record_check(dump_id, facts),
