@@ -51,7 +51,7 @@ class ProgressBar:
 
 
 def _input_options(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("dump", help="the dump: an HDF5 or NPZ file (docs/dump-layout.md), or a "
+    parser.add_argument("dump", help="the dump: an HDF5, NPZ or safetensors file (docs/dump-layout.md), or a "
                                      "folder or glob of shard files (docs/scale.md)")
     parser.add_argument(
         "--activation", action="append", default=[], metavar="KIND|LAYER=KIND",

@@ -28,7 +28,7 @@ class ActdocError(Exception):
 
 
 class UnreadableDump(ActdocError):
-    """The file is missing, not HDF5 or NPZ, truncated or corrupt."""
+    """The file is missing, not HDF5, NPZ or safetensors, truncated or corrupt."""
 
 
 class UnsupportedFormat(UnreadableDump):

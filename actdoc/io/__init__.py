@@ -51,10 +51,10 @@ def pick_reader(path: Path) -> Any:
     except OSError as exc:
         raise UnreadableDump(f"{where}: cannot be read ({exc.strerror or exc})") from None
     if not head:
-        raise UnsupportedFormat(f"{where}: the file is empty; expected an HDF5 or NPZ dump")
+        raise UnsupportedFormat(f"{where}: the file is empty; expected an HDF5, NPZ or safetensors dump")
     hint = " (a single .npy array: save the arrays with np.savez)" \
         if head.startswith(b"\x93NUMPY") else ""
-    raise UnsupportedFormat(f"{where}: neither HDF5 nor NPZ (it starts with {head[:8]!r}){hint}")
+    raise UnsupportedFormat(f"{where}: neither HDF5, NPZ nor safetensors (it starts with {head[:8]!r}){hint}")
 
 
 def parse_activations(specs: Sequence[str], path: Path, option: str = "--activation"

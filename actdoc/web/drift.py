@@ -50,7 +50,8 @@ def short_labels(names: Sequence[str]) -> list[str]:
     up to a separator ("relu_dying_step1.h5", ... -> "step1", ...). Full stems when cutting
     would leave a label empty or make two alike; positions added when even those repeat (two
     uploads named "model.h5")."""
-    stems = [re.sub(r"\.(h5|hdf5|npz)$", "", name, flags=re.IGNORECASE) for name in names]
+    stems = [re.sub(r"\.(h5|hdf5|npz|safetensors)$", "", name, flags=re.IGNORECASE)
+             for name in names]
     prefix = stems[0]
     for stem in stems[1:]:
         while not stem.startswith(prefix):

@@ -115,7 +115,7 @@ class UploadSpool:
 
 
 def sniff_format(path: Path) -> str:
-    """The container of a received file from its leading bytes ("hdf5" or "npz").
+    """The container of a received file from its leading bytes ("hdf5", "npz" or "safetensors").
 
     Reads a few bytes only (the HDF5 signature may follow a user block), so it is safe on any
     file; a file of neither kind raises the readers' UnsupportedFormat sentence (HTTP 415).

@@ -97,7 +97,7 @@ def test_check_gate_levels(capsys, sick, fit):
 
 @pytest.mark.parametrize("make, message", [
     (lambda p: p, "no such file"),
-    (lambda p: (p.write_bytes(b"plain text, not a dump\n"), p)[1], "neither HDF5 nor NPZ"),
+    (lambda p: (p.write_bytes(b"plain text, not a dump\n"), p)[1], "neither HDF5, NPZ nor safetensors"),
 ])
 def test_bad_input_is_one_line_and_status_2(capsys, tmp_path, make, message):
     path = make(tmp_path / "bad.h5")

@@ -80,7 +80,7 @@ CASES = {
             '{"layers": [{"name": "fc", "order": "first"}]}')}),
         errors.InvalidDump, ["layer 'fc'", "'order'", "integer"]),
     "not a dump": (lambda p: p.write_bytes(b"GIF89a not a dump at all"),
-                   errors.UnsupportedFormat, ["neither HDF5 nor NPZ"]),
+                   errors.UnsupportedFormat, ["neither HDF5, NPZ nor safetensors"]),
     "lone npy": (lambda p: np.save(open(p, "wb"), Z), errors.UnsupportedFormat, ["np.savez"]),
     "empty file": (lambda p: p.write_bytes(b""), errors.UnsupportedFormat, ["empty"]),
     "truncated hdf5": (lambda p: (hdf5_file(p, {"fc": {"preact": Z}}),

@@ -159,3 +159,24 @@ def test_a_catalog_from_before_the_field_gains_it_empty(tmp_path):
     db.close()
     record = Catalog(path).get("a1")
     assert record.activations == () and record.to_dict()["activation"] == []
+
+
+def test_an_uploaded_safetensors_state_dict_says_so(trained, tmp_path, capsys):
+    """The dump object's and the findings' ``format`` name the reader that opened the file
+    (docs/dashboard.md): ``safetensors`` here, with its ``probe.input`` run as the probe."""
+    save_file = pytest.importorskip("safetensors.numpy").save_file
+    npz, _ = trained
+    with np.load(npz) as arrays:
+        tensors = {("probe.input" if key == "probe/input" else key): np.ascontiguousarray(value)
+                   for key, value in arrays.items()}
+    path = tmp_path / "digits_state.safetensors"
+    save_file(tensors, str(path))
+    plain = command_line(path, capsys, "--activation", "relu")
+    client = create_app(tmp_path / "ws").test_client()
+    answer = upload(client, path, "relu")
+    assert answer.status_code == 201 and answer.get_json()["format"] == "safetensors"
+    done = wait_until_done(client, answer.get_json()["id"], timeout=120)
+    assert done["status"] == "ready", done["error"]
+    uploaded = client.get(f"/api/dumps/{done['id']}/findings.json").get_json()
+    assert uploaded == plain and uploaded["source"]["format"] == "safetensors"
+    assert uploaded["source"]["samples"] == 1797  # load_digits holds 1797 images
