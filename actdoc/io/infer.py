@@ -101,8 +101,12 @@ def leading_values(source: ArraySource) -> np.ndarray:
     positions = math.prod(shape[2:]) if len(shape) > 2 else 1
     per_row = max(1, math.prod(shape[1:]))
     rows = max(1, min(shape[0], SAMPLE_OBSERVATIONS // positions, SAMPLE_VALUES // per_row))
-    block = np.asarray(source.read_samples(0, rows))
-    return to_observations(block).astype(np.float64)
+    block = to_observations(np.asarray(source.read_samples(0, rows)))
+    # A float type wider than float64 (x87 extended precision, which an HDF5 file may declare)
+    # holds values float64 cannot: past its range (cast to inf) and invalid encodings (cast to
+    # NaN). Both are non-finite, so the fits drop them; numpy need not warn about it.
+    with np.errstate(over="ignore", invalid="ignore"):
+        return block.astype(np.float64)
 
 
 def infer_kind(preact_source: ArraySource | None, output_source: ArraySource | None) -> KindGuess:
@@ -114,10 +118,13 @@ def infer_kind(preact_source: ArraySource | None, output_source: ArraySource | N
                                             f"linear; declare the activation to be sure")
     y = leading_values(output_source).reshape(-1)
     y_dtype = np.dtype(output_source.dtype)
-    if preact_source is None:
-        return from_output(y, y_dtype)
-    z = leading_values(preact_source).reshape(-1)
-    return from_pairs(z, y, np.dtype(preact_source.dtype), y_dtype)
+    # Huge finite values overflow the tolerances and the slope fit to inf or NaN, which then
+    # fails (or, for a tolerance, widens) the comparison as it should: no warning to print.
+    with np.errstate(over="ignore", invalid="ignore"):
+        if preact_source is None:
+            return from_output(y, y_dtype)
+        z = leading_values(preact_source).reshape(-1)
+        return from_pairs(z, y, np.dtype(preact_source.dtype), y_dtype)
 
 
 #: The note a layer gets when its stored pre-activations look like a copy of its outputs.

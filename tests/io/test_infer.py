@@ -167,3 +167,46 @@ def test_computed_wide_then_rounded_on_storage(name, wide, narrow):
     z = preacts(12).astype(wide)
     y = function(z.astype(np.float64)).astype(wide)
     assert infer_kind(*pair(z, y, narrow)).kind is kind
+
+
+def x87_oddities(count: int) -> np.ndarray:
+    """``count`` long doubles float64 cannot hold: a pseudo-NaN and an unnormal (encodings the
+    x87 80-bit format reserves as invalid, Intel SDM vol. 1 section 8.2.2, from memory) and
+    1e4000, past float64's range."""
+    raw = np.zeros((count, np.dtype(np.longdouble).itemsize), dtype=np.uint8)
+    for row in range(count):
+        kind = row % 3
+        if kind == 0:  # exponent all ones, integer bit clear: pseudo-NaN
+            raw[row, :8] = np.frombuffer((1).to_bytes(8, "little"), np.uint8)
+            raw[row, 8:10] = [0xFF, 0x7F]
+        elif kind == 1:  # non-zero exponent, integer bit clear: unnormal
+            raw[row, :8] = np.frombuffer((5).to_bytes(8, "little"), np.uint8)
+            raw[row, 8:10] = [0x00, 0x40]
+    values = raw.view(np.longdouble).reshape(count)
+    values[2::3] = np.longdouble("1e4000")
+    return values
+
+
+@pytest.mark.parametrize("wide", [False, True])
+def test_nan_inf_and_huge_values_warn_nothing_and_are_left_out(wide, recwarn):
+    """NaN, +-inf, values near float64's maximum and (for a long-double layer, as an HDF5 file
+    may declare one) values float64 cannot hold at all: inference warns nothing and still
+    identifies the rectifier, max(0, z) (common practice), on the rest of the sample."""
+    if wide and np.finfo(np.longdouble).nmant < 63:
+        pytest.skip("long double is not the x87 80-bit format on this machine")
+    z = preacts(7, shape=(400, 8))
+    z[::5, 0] = np.nan
+    z[1::5, 1] = np.inf
+    z[2::5, 2] = -np.inf
+    z[3::5, 3] = 1e308
+    z[4::5, 4] = -1e308
+    dtype = np.longdouble if wide else np.float64
+    z = z.astype(dtype)
+    if wide:
+        z[::4, 5] = x87_oddities(z[::4, 5].size)
+    y = np.maximum(z, 0)
+    # What numpy warns about by default (all but underflow) raises here instead.
+    with np.errstate(over="raise", invalid="raise", divide="raise"):
+        guess = infer_kind(MemorySource(z), MemorySource(y))
+    assert guess.kind is K.RELU
+    assert not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]
