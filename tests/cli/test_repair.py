@@ -12,33 +12,24 @@ safetensors file, read with safetensors' own torch ``load_file``): the outputs m
 from __future__ import annotations
 
 import copy
-import warnings
 
 import numpy as np
 import pytest
 
 sklearn = pytest.importorskip("sklearn", reason="scikit-learn is the reference here")
 safetensors_numpy = pytest.importorskip("safetensors.numpy", reason="the 'safetensors' package")
-from sklearn.datasets import load_digits  # noqa: E402
-from sklearn.exceptions import ConvergenceWarning  # noqa: E402
-from sklearn.neural_network import MLPClassifier  # noqa: E402
 
 from actdoc.cli import main  # noqa: E402
 from actdoc.io import open_dump  # noqa: E402
 from actdoc.io.writer import write_dump  # noqa: E402
+from tests.support.digits import train_dying_relu_mlp  # noqa: E402
 
 NAMES = ("hidden1", "hidden2", "out")
 
 
 @pytest.fixture(scope="module")
 def trained():
-    X, y = load_digits(return_X_y=True)
-    X = X / 16.0
-    clf = MLPClassifier(hidden_layer_sizes=(64, 32), activation="relu", solver="sgd",
-                        learning_rate_init=0.5, max_iter=30, random_state=0)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        clf.fit(X, y)
+    clf, X, _ = train_dying_relu_mlp()
     return clf, X
 
 

@@ -13,20 +13,17 @@ leave at zero on every sample. The upload read limits still bound what the file 
 from __future__ import annotations
 
 import json
-import warnings
 
 import numpy as np
 import pytest
 
 sklearn = pytest.importorskip("sklearn", reason="scikit-learn is the reference here")
-from sklearn.datasets import load_digits  # noqa: E402
-from sklearn.exceptions import ConvergenceWarning  # noqa: E402
-from sklearn.neural_network import MLPClassifier  # noqa: E402
 
 from actdoc.cli import main  # noqa: E402
 from actdoc.io.limits import ReadLimits  # noqa: E402
 from actdoc.io.writer import write_dump, write_npz  # noqa: E402
 from actdoc.web import create_app  # noqa: E402
+from tests.support.digits import train_dying_relu_mlp  # noqa: E402
 from tests.support.web import post_file, wait_until_done  # noqa: E402
 
 NAMES = ("hidden1", "hidden2", "out")
@@ -34,14 +31,7 @@ NAMES = ("hidden1", "hidden2", "out")
 
 @pytest.fixture(scope="module")
 def trained():
-    X, y = load_digits(return_X_y=True)
-    X = X / 16.0
-    clf = MLPClassifier(hidden_layer_sizes=(64, 32), activation="relu", solver="sgd",
-                        learning_rate_init=0.5, max_iter=30, random_state=0)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        clf.fit(X, y)
-    activations = clf._forward_pass([X] + [None] * (clf.n_layers_ - 1))
+    clf, X, activations = train_dying_relu_mlp()
     return clf, X, activations
 
 
