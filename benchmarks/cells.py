@@ -23,7 +23,7 @@ import h5py
 import numpy as np
 
 from actdoc.io.writer import DumpWriter
-from actdoc.neurons import logistic
+from benchmarks.dumps import output_of, unit_offsets
 
 LAYER_KINDS = ("relu", "logistic", "tanh", "relu")
 #: Bytes of one array's block while writing (the pool of noise holds three of them).
@@ -89,26 +89,6 @@ def cell_named(name: str) -> Cell:
     raise KeyError(f"no benchmark cell named '{name}' (known: {', '.join(c.name for c in CELLS)})")
 
 
-def _output(kind: str, z: np.ndarray) -> np.ndarray:
-    if kind == "relu":
-        return np.maximum(z, 0.0)
-    if kind == "logistic":
-        return logistic(z)
-    return np.tanh(z)
-
-
-def _unit_offsets(kind: str, units: int, rng: np.random.Generator):
-    """Per-unit scale and shift of the total input, with a few planted pathologies."""
-    scale = rng.uniform(0.5, 2.0, units).astype(np.float32)
-    shift = rng.normal(0.0, 0.5, units).astype(np.float32)
-    planted = max(1, units // 32)
-    if kind == "relu":
-        shift[:planted] = -20.0  # silent: never positive
-    elif kind == "logistic":
-        shift[:planted] = 12.0  # saturated high
-    return scale, shift
-
-
 def layer_blocks(cell: Cell, samples: int, seed: int = 0):
     """``(layer name, kind, [(array name, block), ...] per block)`` for every layer, in order."""
     rng = np.random.default_rng(seed)
@@ -116,14 +96,14 @@ def layer_blocks(cell: Cell, samples: int, seed: int = 0):
     rows = max(1, min(samples, WRITE_BLOCK_BYTES // (cell.units * dtype.itemsize)))
     pool = rng.standard_normal((POOL_BLOCKS, rows, cell.units), dtype=np.float32)
     for index, kind in enumerate(LAYER_KINDS):
-        scale, shift = _unit_offsets(kind, cell.units, rng)
+        scale, shift = unit_offsets(kind, cell.units, rng)
 
         def blocks(kind=kind, scale=scale, shift=shift):
             for block, first in enumerate(range(0, samples, rows)):
                 count = min(rows, samples - first)
                 z = (pool[block % POOL_BLOCKS, :count] * scale + (shift + 0.01 * block))
                 z = z.astype(dtype, copy=False)
-                values = {"preact": z, "output": _output(kind, z)}
+                values = {"preact": z, "output": output_of(kind, z)}
                 yield [(name, values[name]) for name in cell.stored]
 
         yield f"layer{index + 1}", kind, blocks()

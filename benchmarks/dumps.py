@@ -49,7 +49,8 @@ def samples_for(size_gb: float, layers: int = len(LAYER_KINDS), units: int = UNI
     return max(8, int(round(per_array / (units * 4))))
 
 
-def _output(kind: str, z: np.ndarray) -> np.ndarray:
+def output_of(kind: str, z: np.ndarray) -> np.ndarray:
+    """y = f(z) for the benchmark layers' kinds."""
     if kind == "relu":
         return np.maximum(z, 0.0)
     if kind == "logistic":
@@ -57,7 +58,7 @@ def _output(kind: str, z: np.ndarray) -> np.ndarray:
     return np.tanh(z)
 
 
-def _unit_offsets(kind: str, units: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+def unit_offsets(kind: str, units: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
     """Per-unit scale and shift of the total input, with a few planted pathologies."""
     scale = rng.uniform(0.5, 2.0, units).astype(np.float32)
     shift = rng.normal(0.0, 0.5, units).astype(np.float32)
@@ -81,11 +82,11 @@ def write_bench_dump(path: Path, samples: int, units: int = UNITS,
             weight = rng.normal(0.0, 1.0 / np.sqrt(fan_in), (units, fan_in)).astype(np.float32)
             out.add_layer(f"layer{index + 1}", kind, units=units, weight=weight,
                           bias=np.zeros(units, np.float32))
-            scale, shift = _unit_offsets(kind, units, rng)
+            scale, shift = unit_offsets(kind, units, rng)
             for block, first in enumerate(range(0, samples, rows)):
                 count = min(rows, samples - first)
                 z = pool[block % POOL_BLOCKS, :count] * scale + (shift + 0.01 * block)
-                out.append(f"layer{index + 1}", preact=z, output=_output(kind, z))
+                out.append(f"layer{index + 1}", preact=z, output=output_of(kind, z))
 
 
 def cached_file_ok(path: Path, samples: int, units: int, layers: int) -> bool:
