@@ -31,6 +31,12 @@ SILENT_FILL = "rgba(120, 128, 140, 0.12)"
 ZONE_SETTINGS = ("logistic_saturation_margin", "tanh_saturation_level", "linear_gain_share")
 
 
+#: Tick labels are not measured one by one to hide those past the chart's edge (plotly.js's
+#: ``ticklabeloverflow``); the margins leave them room, and the measuring was about a third of
+#: the time a page took to draw its charts (docs/dashboard.md, page load).
+QUICK_TICK_LABELS = {"ticklabeloverflow": "allow"}
+
+
 def base_layout(title: str, **extra: Any) -> dict[str, Any]:
     """The calm shared look: light grid, system font, room for a title (shown as text: names
     in it cannot become plotly markup)."""
@@ -40,8 +46,8 @@ def base_layout(title: str, **extra: Any) -> dict[str, Any]:
                  "color": INK},
         "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#ffffff",
         "margin": {"l": 60, "r": 24, "t": 48, "b": 56},
-        "xaxis": {"gridcolor": GRID, "zerolinecolor": GRID},
-        "yaxis": {"gridcolor": GRID, "zerolinecolor": GRID},
+        "xaxis": {"gridcolor": GRID, "zerolinecolor": GRID, **QUICK_TICK_LABELS},
+        "yaxis": {"gridcolor": GRID, "zerolinecolor": GRID, **QUICK_TICK_LABELS},
         "legend": {"orientation": "h", "x": 1, "xanchor": "right", "y": 1.0,
                    "yanchor": "bottom", "bgcolor": "rgba(0,0,0,0)"},
         "hovermode": "closest",
@@ -319,7 +325,8 @@ def inputs_under_curve(info: LayerInfo, edges: np.ndarray, counts: np.ndarray,
     # tickmode "auto": plotly.js would otherwise sync these ticks to the left axis' grid,
     # which lands them on values like 1.67 and 3.87.
     curve_axis = {"overlaying": "y", "side": "right", "showgrid": False, "zeroline": False,
-                  "title": {"text": "output f(z)"}, "nticks": 6, "tickmode": "auto"}
+                  "title": {"text": "output f(z)"}, "nticks": 6, "tickmode": "auto",
+                  **QUICK_TICK_LABELS}
     if curve is not None:
         traces.append(curve)
         y_low, y_high = float(np.min(curve["y"])), float(np.max(curve["y"]))

@@ -82,10 +82,16 @@ def browser():
 
 
 @pytest.fixture(scope="session")
-def demo_url(tmp_path_factory):
-    """The dashboard in demo mode, every bundled dump analysed, served on loopback."""
+def demo_app(tmp_path_factory):
+    """The dashboard in demo mode, every bundled dump analysed."""
     app = create_app(tmp_path_factory.mktemp("demo-workspace"), demo=True)
     client = app.test_client()
     for dump in client.get("/api/dumps").get_json():
         assert wait_until_done(client, dump["id"])["status"] == "ready", dump["name"]
-    yield from serve_in_thread(app)
+    return app
+
+
+@pytest.fixture(scope="session")
+def demo_url(demo_app):
+    """The analysed demo dashboard served on loopback."""
+    yield from serve_in_thread(demo_app)
