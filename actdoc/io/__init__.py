@@ -86,8 +86,11 @@ def apply_activations(raw: RawDump, specs: Sequence[str]) -> RawDump:
     names = [layer.name for layer in raw.layers]
     unknown = [name for name in per_layer if name not in names]
     if unknown:
-        raise InvalidDump(f"{describe(raw.path, unknown[0])}: --activation names a layer the dump "
-                          f"does not hold; its layers are {', '.join(names)}")
+        # Said without naming the option: the kinds come from --activation or from an
+        # upload's 'activation' field.
+        raise InvalidDump(f"{describe(raw.path, unknown[0])}: an activation kind was declared "
+                          f"for a layer the dump does not hold; its layers are "
+                          f"{', '.join(names)}")
     for layer in raw.layers:  # ordering reads the 'order' attributes: refuse bad ones first
         check_attributes(raw, layer)
     ordered = [layer.name for layer in order_layers(raw)]

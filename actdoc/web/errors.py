@@ -1,7 +1,8 @@
 """The one place where failures become HTTP answers: a page in the app's style, or JSON.
 
 Statuses: a dump the readers refuse 422 with their sentence, a file of neither type 415, a file
-or member too large 413, an unknown dump 404, findings asked for too early 409, a malformed
+or member too large 413, an unknown dump 404, findings asked for too early or a
+repeated upload that declares other activation kinds 409, a malformed
 request or dumps that cannot be compared 400. Any other exception is a bug: 500 with a short
 sentence, the traceback in the log.
 """
@@ -15,7 +16,7 @@ from werkzeug.exceptions import HTTPException
 
 from actdoc.errors import ActdocError, DumpTooLarge, IncomparableDumps, UnsupportedFormat
 from actdoc.escaping import visible
-from actdoc.workspace import NotReady, UnknownDump, UploadTooLarge
+from actdoc.workspace import NotReady, StoredWithOtherKinds, UnknownDump, UploadTooLarge
 
 log = logging.getLogger(__name__)
 
@@ -23,6 +24,7 @@ log = logging.getLogger(__name__)
 STATUS_BY_CLASS: tuple[tuple[type[BaseException], int], ...] = (
     (UnknownDump, 404),
     (NotReady, 409),
+    (StoredWithOtherKinds, 409),
     (UploadTooLarge, 413),
     (DumpTooLarge, 413),
     (UnsupportedFormat, 415),
@@ -36,7 +38,7 @@ TITLES = {
     403: "Not allowed from here",
     404: "Nothing here",
     405: "Not an action this address takes",
-    409: "Not ready yet",
+    409: "Not possible yet",
     413: "Too large",
     415: "Not a dump file",
     422: "The dump cannot be used",

@@ -33,12 +33,25 @@ from actdoc.workspace.intake import COPY_BLOCK_BYTES, UploadSpool, UploadTooLarg
 from actdoc.workspace.runner import MAX_ATTEMPTS, Runner
 from actdoc.workspace.store import FileStore, FindingsCache
 
-__all__ = ["Workspace", "DumpRecord", "UnknownDump", "NotReady", "UploadSpool",
-           "UploadTooLarge", "JobLimits", "STATUSES", "MAX_ATTEMPTS",
+__all__ = ["Workspace", "DumpRecord", "UnknownDump", "NotReady", "StoredWithOtherKinds",
+           "UploadSpool", "UploadTooLarge", "JobLimits", "STATUSES", "MAX_ATTEMPTS",
            "DEFAULT_MAX_UPLOAD_BYTES", "default_workspace_dir"]
 
 #: Default largest upload: 2 GiB. Dumps are read in blocks, so the limit guards the disk.
 DEFAULT_MAX_UPLOAD_BYTES = 2 * 1024**3
+
+
+class StoredWithOtherKinds(ActdocError):
+    """An upload repeats stored bytes but declares other activation kinds than they were
+    analysed with: the stored dump and its findings stay as they are."""
+
+    def __init__(self, record: DumpRecord, declared: tuple[str, ...]):
+        def kinds(specs):
+            return ", ".join(specs) if specs else "the kinds the file itself names"
+        super().__init__(
+            f"{record.name}: these bytes are already on the shelf, analysed with "
+            f"{kinds(record.activations)}; delete that dump first to analyse them with "
+            f"{kinds(declared)}")
 
 
 class Workspace:
@@ -121,13 +134,14 @@ class Workspace:
 
         Only the leading bytes are looked at here (a file of neither kind raises the readers'
         UnsupportedFormat and leaves nothing behind); the readers check the rest in the
-        background. Bytes already stored return the existing record (and its kinds).
+        background. Bytes already stored return the existing record, unless the upload declares
+        other kinds than it was analysed with (StoredWithOtherKinds: nothing is replaced).
         """
         try:
             sha256 = spool.finish()
             existing = self.catalog.find_sha(sha256)
             if existing is not None:
-                return existing, False
+                return self._same_dump(existing, tuple(activations)), False
             dump_format = intake.sniff_format(spool.path)
             record = DumpRecord(
                 id=sha256[:16], name=spool.name, sha256=sha256, size=spool.size,
@@ -139,12 +153,19 @@ class Workspace:
             with self._store_lock:
                 existing = self.catalog.find_sha(sha256)
                 if existing is not None:
-                    return existing, False
+                    return self._same_dump(existing, tuple(activations)), False
                 self.store.place_dump(spool.folder, sha256)
                 self.catalog.insert(record)
         finally:
             spool.discard()
         return record, True
+
+    @staticmethod
+    def _same_dump(existing: DumpRecord, declared: tuple[str, ...]) -> DumpRecord:
+        """The stored record for a repeated upload, if it declares no other kinds."""
+        if declared and tuple(declared) != tuple(existing.activations):
+            raise StoredWithOtherKinds(existing, declared)
+        return existing
 
     # ------------------------------------------------------------------ analysis
     def start(self) -> None:

@@ -126,8 +126,35 @@ def test_a_layer_the_file_does_not_hold_fails_the_dump_with_the_readers_sentence
     done = wait_until_done(client, upload(client, path, "hidden9=relu").get_json()["id"],
                            timeout=120)
     assert done["status"] == "failed"
-    assert done["error"] == ("digits_state.npz, layer 'hidden9': --activation names a layer the "
-                             "dump does not hold; its layers are hidden1, hidden2, out")
+    assert done["error"] == ("digits_state.npz, layer 'hidden9': an activation kind was declared "
+                             "for a layer the dump does not hold; its layers are hidden1, "
+                             "hidden2, out")
+
+
+def test_the_same_bytes_with_other_kinds_are_a_409_and_the_stored_dump_stays(trained, tmp_path):
+    path, _ = trained
+    app = create_app(tmp_path / "ws")
+    client = app.test_client()
+    first = upload(client, path, "relu").get_json()
+    assert wait_until_done(client, first["id"], timeout=120)["status"] == "ready"
+    stored = client.get(f"/api/dumps/{first['id']}/findings.json").get_data()
+
+    other = upload(client, path, "tanh")
+    assert other.status_code == 409
+    assert other.get_json()["error"] == (
+        "digits_state.npz: these bytes are already on the shelf, analysed with relu; delete "
+        "that dump first to analyse them with tanh")
+    page = client.post("/upload", data={"file": (open(path, "rb"), path.name),
+                                        "activation": "hidden1=tanh"},
+                       content_type="multipart/form-data", headers={"Accept": "text/html"})
+    assert page.status_code == 409 and "already on the shelf" in page.get_data(as_text=True)
+
+    for kinds in (("relu",), ()):  # the stored kinds, or none: the stored dump
+        again = upload(client, path, *kinds)
+        assert again.status_code == 201 and again.get_json()["duplicate"] is True
+        assert again.get_json()["id"] == first["id"]
+    assert [record.id for record in app.extensions["actdoc"].workspace.list()] == [first["id"]]
+    assert client.get(f"/api/dumps/{first['id']}/findings.json").get_data() == stored
 
 
 def test_a_catalog_from_before_the_field_gains_it_empty(tmp_path):
