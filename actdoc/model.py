@@ -208,11 +208,13 @@ class Layer:
                 if source is None:
                     out.append(None)
                     continue
+                # The last, shorter block reuses the first rows of the buffer: a new one would
+                # be allocated while the caller still holds views of the previous block.
                 buf = buffers.get(name)
-                if buf is None or buf.shape[0] != last - first:
+                if buf is None or buf.shape[0] < last - first:
                     buf = np.empty((last - first,) + tuple(source.shape[1:]), source.dtype)
                     buffers[name] = buf
-                raw = source.read_samples(first, last, out=buf)
+                raw = source.read_samples(first, last, out=buf[:last - first])
                 out.append(as_float(to_observations(raw)))
             yield tuple(out)
 

@@ -36,8 +36,9 @@ def source_info(dump: Dump, digest: bool = True) -> SourceInfo:
 #: worker threads share even one big layer; small enough to balance, large enough that the
 #: per-task overhead (buffers, a merge) is negligible.
 TASK_BYTES = 96 << 20
-#: Worker threads never exceed this: each holds its own blocks (about 40-60 MB with 1024 float32
-#: units), and three keep a 2 GB dump's peak near 280 MB, well under the 400 MB target.
+#: Worker threads never exceed this: each holds its own blocks (16 MiB of each stored array
+#: where blocks are read into buffers, about one chunk of each where chunks are measured in
+#: place), so the peak grows with the workers (docs/scale.md has the measured peaks).
 MAX_WORKERS = 3
 
 

@@ -134,8 +134,9 @@ class StorageMap:
         self.release(start, stop)
         return out
 
-    def release(self, start: int, stop: int) -> None:
-        """Drop the mapped pages of rows ``start:stop`` once they are measured.
+    def release(self, start: int, stop: int, units: slice | None = None) -> None:
+        """Drop the mapped pages of rows ``start:stop`` (of the chunks holding ``units``, all
+        by default) once they are measured.
 
         A page fault maps neighbouring pages too (Linux maps pages around a fault, and here
         reads of values not aligned to their size mapped about twice the pages they read), so
@@ -152,13 +153,15 @@ class StorageMap:
         row_bytes = cols * self.dtype.itemsize
         whole = self.chunk_bytes <= WHOLE_CHUNK
         behind = -(-LOOK_BEHIND // row_bytes)
+        columns = range(self.offsets.shape[1]) if units is None else range(
+            units.start // cols, -(-units.stop // cols))
         for i in range(start // rows, -(-stop // rows)):
             row0, row1 = max(start, i * rows), min(stop, (i + 1) * rows, self.shape[0])
             row0 = i * rows if whole else max(i * rows, row0 - behind)
             if whole or row1 == min((i + 1) * rows, self.shape[0]):
                 row1 = (i + 1) * rows
-            for offset in self.offsets[i]:
-                self.files.release(int(offset) + (row0 - i * rows) * row_bytes,
+            for j in columns:
+                self.files.release(int(self.offsets[i, j]) + (row0 - i * rows) * row_bytes,
                                    (row1 - row0) * row_bytes)
 
 

@@ -88,11 +88,12 @@ class HDF5Source:
         except OSError:  # no address space left for a map: h5py reads it instead
             return None
 
-    def release(self, start: int, stop: int) -> None:
-        """Drop the mapped pages of rows ``start:stop`` once their tiles are measured."""
+    def release(self, start: int, stop: int, units: slice | None = None) -> None:
+        """Drop the mapped pages of rows ``start:stop`` (of ``units``, or all) once their
+        tiles are measured."""
         storage = self.storage()
         if storage is not None:
-            storage.release(start, min(stop, self.shape[0]))
+            storage.release(start, min(stop, self.shape[0]), units)
 
     def _failed(self, exc: Exception) -> UnreadableDump:
         text = str(exc).replace("\n", " ")[:200]

@@ -107,10 +107,11 @@ class MappedSource:
         except OSError:
             return None
 
-    def release(self, start: int, stop: int) -> None:
-        """Drop the mapped pages of rows ``start:stop`` once their tiles are measured."""
+    def release(self, start: int, stop: int, units: slice | None = None) -> None:
+        """Drop the mapped pages of rows ``start:stop`` (of ``units``, or all) once their
+        tiles are measured."""
         if self._storage is not None:
-            self._storage.release(start, min(stop, self.shape[0]))
+            self._storage.release(start, min(stop, self.shape[0]), units)
 
     def read_unit(self, unit: int) -> np.ndarray:
         return np.array(self._array[:, unit])
