@@ -201,6 +201,17 @@ def select(spec: str) -> list[Cell]:
     return [cell_named(name.strip()) for name in spec.split(",") if name.strip()]
 
 
+def byte_compile_actdoc() -> None:
+    """Write actdoc's .pyc files, as ``pip install`` does for an installed package: from a
+    source checkout with PYTHONDONTWRITEBYTECODE set, every ``actdoc analyze`` would otherwise
+    compile its ~60 modules again (about 0.07 s of each run)."""
+    import compileall
+
+    import actdoc
+
+    compileall.compile_dir(str(Path(actdoc.__file__).parent), quiet=1)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="actdoc throughput and memory benchmark")
     parser.add_argument("--size-gb", type=float, default=2.0,
@@ -218,6 +229,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=HERE / "out",
                         help="folder for the JSON results")
     args = parser.parse_args(argv)
+    byte_compile_actdoc()
     results = []
     for cell in select(args.cells):
         for size in [args.size_gb, *args.also]:
