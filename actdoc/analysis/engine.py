@@ -10,7 +10,6 @@ import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import replace
-from functools import reduce
 from pathlib import Path
 from typing import Callable
 
@@ -116,19 +115,39 @@ def _measure_all(dump: Dump, settings: Settings, progress: Callable[[float], Non
         return accumulate_layer(layer, settings, first, stop, progress=advance)
 
     count = min(workers or min(MAX_WORKERS, available_cores()), max(1, len(tasks)))
+    merger = InOrderMerge(tasks)
     if count <= 1:
-        results = [run(task) for task in tasks]
+        for task in tasks:
+            merger.add(task, run(task))
     else:
         with ThreadPoolExecutor(max_workers=count, thread_name_prefix="actdoc-measure") as pool:
-            results = list(pool.map(run, tasks))
-    pieces: dict[int, list[tuple[int, LayerStats]]] = {}
-    for task, stats in zip(tasks, results):
-        pieces.setdefault(task[0], []).append((task[1], stats))
-    measured: list[LayerStats | None] = []
-    for index in range(len(dump.layers)):
-        ordered = [stats for _, stats in sorted(pieces.get(index, []), key=lambda p: p[0])]
-        measured.append(reduce(LayerStats.merge, ordered) if ordered else None)
-    return measured
+            for task, stats in zip(tasks, pool.map(run, tasks)):
+                merger.add(task, stats)
+    return [merger.merged.get(index) for index in range(len(dump.layers))]
+
+
+class InOrderMerge:
+    """Each layer's pieces merged in sample order as they arrive: the same left fold as merging
+    them all at the end (so the same bits whichever thread finishes first), without holding
+    every piece's statistics until the last one is done (about 1 MB a piece with 8192 units,
+    dozens of pieces on a 4 GB dump)."""
+
+    def __init__(self, tasks: list[tuple[int, int, int, int]]):
+        self._next: dict[int, list[int]] = {}
+        for index, first, _stop, _work in sorted(tasks, key=lambda task: task[:2]):
+            self._next.setdefault(index, []).append(first)
+        self._waiting: dict[int, dict[int, LayerStats]] = {}
+        self.merged: dict[int, LayerStats] = {}
+
+    def add(self, task: tuple[int, int, int, int], stats: LayerStats) -> None:
+        index, first = task[0], task[1]
+        waiting = self._waiting.setdefault(index, {})
+        waiting[first] = stats
+        queue = self._next[index]
+        while queue and queue[0] in waiting:
+            piece = waiting.pop(queue.pop(0))
+            known = self.merged.get(index)
+            self.merged[index] = piece if known is None else known.merge(piece)
 
 
 def analyze(dump: Dump, settings: Settings | None = None,
