@@ -32,6 +32,7 @@ from actdoc.analysis.defaults import Settings
 from actdoc.analysis.histograms import grids_for
 from actdoc.analysis.moments import Moments
 from actdoc.analysis.sidestats import SideStats
+from actdoc import heap
 from actdoc.analysis.tiles import paired_tiles
 from actdoc.model import ActivationKind, Layer
 from actdoc.neurons import NONNEGATIVE_OUTPUT, Neuron
@@ -251,6 +252,7 @@ def accumulate_layer(
             side.add_tiles(tile, stats, int(stats.nonfinite.sum()) != bad)
             stats.rows += rows
             first_row += rows
+            heap.give_back()  # decompression buffers freed in this thread (actdoc.heap)
             if progress is not None:
                 progress(rows)
     if stats.kind is Kind.STOCHASTIC_BINARY and "output" not in stats.arrays:
