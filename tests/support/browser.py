@@ -89,6 +89,15 @@ def page_types(base_url: str) -> dict[str, str]:
     }
 
 
+def open_page(browser, width: int):
+    """A page at ``width`` (a desktop height, or a phone's 844 at phone widths) that collects
+    its script errors in ``page.errors``."""
+    page = browser.new_page(viewport={"width": width, "height": 900 if width > 600 else 844})
+    page.errors = []
+    page.on("pageerror", lambda error: page.errors.append(str(error)))
+    return page
+
+
 def shoot(page, name: str) -> Path:
     """A full-page screenshot in tests/artifacts/web-<name>.png, for a person to look at."""
     ARTIFACTS.mkdir(exist_ok=True)

@@ -14,6 +14,7 @@ from pathlib import Path
 import pytest
 
 from actdoc.web import create_app
+from tests.support.browser import open_page
 from tests.support.web import post_file, wait_until_done
 
 pytestmark = pytest.mark.browser
@@ -44,13 +45,6 @@ def site(tmp_path_factory):
     thread.start()
     yield f"http://127.0.0.1:{server.effective_port}", ids
     server.close()
-
-
-def open_page(browser, width: int):
-    page = browser.new_page(viewport={"width": width, "height": 900 if width > 600 else 844})
-    page.errors = []
-    page.on("pageerror", lambda error: page.errors.append(str(error)))
-    return page
 
 
 def shoot(locator, name: str, width: int) -> None:

@@ -19,6 +19,7 @@ import pytest
 
 from actdoc.io.writer import write_dump
 from actdoc.web import create_app
+from tests.support.browser import open_page
 from tests.support.web import post_file, stop_server, wait_until_done
 
 pytestmark = pytest.mark.browser
@@ -72,13 +73,6 @@ def site(tmp_path_factory):
     thread.start()
     yield f"http://127.0.0.1:{server.effective_port}", ids
     stop_server(server)
-
-
-def open_page(browser, width: int):
-    page = browser.new_page(viewport={"width": width, "height": 900 if width > 600 else 844})
-    page.errors = []
-    page.on("pageerror", lambda error: page.errors.append(str(error)))
-    return page
 
 
 def shoot(page, name: str, width: int) -> None:
